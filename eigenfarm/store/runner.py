@@ -1,0 +1,133 @@
+"""Running shard tasks in this process or on a dask cluster, behind one small interface.
+
+A task is a module-level function and its arguments; arguments may be handles of earlier tasks (or
+lists of them), which are resolved before the call — locally by evaluating them, on dask by passing
+futures so the data stays on the workers.  :meth:`Runner.gather` waits with progress and re-raises the
+first task error; :meth:`Runner.settle` waits until nothing submitted is still running (used after a
+failure, before deleting a half-written store).
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from typing import Callable
+
+#: progress callback: (stage name, tasks done, tasks in the stage)
+Progress = Callable[[str, int, int], None]
+
+
+class Runner(ABC):
+    """Submit tasks, gather their results, release them."""
+
+    @abstractmethod
+    def submit(self, fn, *args):
+        """Schedule ``fn(*args)``; returns a handle."""
+
+    @abstractmethod
+    def scatter(self, value):
+        """A handle for a large argument shared by many tasks."""
+
+    @abstractmethod
+    def gather(self, handles: list, stage: str = "", progress: Progress | None = None) -> list:
+        """Results of ``handles`` in order; calls ``progress`` as tasks finish; raises a task's error."""
+
+    def release(self, handles: list) -> None:
+        """Forget results no longer needed (frees their memory)."""
+
+    def settle(self, timeout: float = 300.0) -> None:
+        """Wait until no submitted task is still running."""
+
+
+class _Deferred:
+    """A local task evaluated on first use and kept until released."""
+
+    __slots__ = ("call", "value")
+
+    def __init__(self, fn, args):
+        self.call = (fn, args)
+        self.value = None
+
+    def result(self):
+        if self.call is not None:
+            fn, args = self.call
+            self.value = fn(*(_resolve(a) for a in args))
+            self.call = None
+        return self.value
+
+
+def _resolve(arg):
+    if isinstance(arg, _Deferred):
+        return arg.result()
+    if isinstance(arg, list):
+        return [_resolve(a) for a in arg]
+    return arg
+
+
+class LocalRunner(Runner):
+    """Evaluate tasks in this process, one at a time, when their results are gathered."""
+
+    def submit(self, fn, *args):
+        return _Deferred(fn, args)
+
+    def scatter(self, value):
+        return value
+
+    def gather(self, handles, stage="", progress=None):
+        out = []
+        for done, handle in enumerate(handles, 1):
+            out.append(handle.result())
+            if progress:
+                progress(stage, done, len(handles))
+        return out
+
+    def release(self, handles):
+        for handle in handles:
+            if isinstance(handle, _Deferred):
+                handle.value = None
+
+
+class DaskRunner(Runner):
+    """Run tasks on a ``distributed.Client``; results stay on the workers until gathered."""
+
+    def __init__(self, client):
+        self.client = client
+        self.submitted = []
+
+    def submit(self, fn, *args):
+        future = self.client.submit(fn, *args, pure=False)
+        self.submitted.append(future)
+        return future
+
+    def scatter(self, value):
+        future = self.client.scatter(value, broadcast=True, hash=False)
+        self.submitted.append(future)
+        return future
+
+    def gather(self, handles, stage="", progress=None):
+        from distributed import as_completed
+
+        for done, future in enumerate(as_completed(handles), 1):
+            if future.status == "error":
+                future.result()
+            if progress:
+                progress(stage, done, len(handles))
+        return self.client.gather(handles)
+
+    def release(self, handles):
+        drop = {id(h) for h in handles}
+        self.submitted = [f for f in self.submitted if id(f) not in drop]
+        for future in handles:
+            future.release()
+
+    def settle(self, timeout=300.0):
+        from distributed import wait
+
+        try:
+            wait(self.submitted, timeout=timeout)
+        except TimeoutError:
+            pass
+
+
+def runner_for(client) -> Runner:
+    """A :class:`DaskRunner` on ``client``, or a :class:`LocalRunner` when it is None."""
+    return LocalRunner() if client is None else DaskRunner(client)
