@@ -17,11 +17,15 @@ Forms (``PAIR_FORMS``):
                 H/rᵑ + Z exp(−r/λ)/r − D exp(−r/ξ)/r⁴ (Vashishta, Kalia, Rino & Ebbsjö, PRB 41,
                 12197, 1990, eq. 2; from memory), Z = ZᵢZⱼe²/4πε₀ in energy·length
                                                                             params H, eta, Z, lam, D, xi, rc
+* ``spring``    harmonic spring k/2 (r − r0)² for r < rc, zero beyond (lattice spring models; the
+                range rc is hard: no smoothing, so choose it between neighbour shells)
+                                                                            params k, r0, rc
 
 Forms with a plain cutoff ``rc`` are smoothed so the energy, the force and (by default) the curvature
 go to zero at rc: φ_s(r) = φ(r) − Σ_{k≤m} φ⁽ᵏ⁾(rc)(r − rc)ᵏ/k!, with m = ``smooth`` (1: energy and force
 continuous, the "shifted-force" form; 2: also the second derivative, so the Hessian has no jump when
-a pair crosses rc).  ``harmonic`` and ``sw2`` vanish at their range by construction.
+a pair crosses rc).  ``harmonic`` and ``sw2`` vanish at their range by construction; ``spring`` is
+cut at rc as given.
 """
 
 from __future__ import annotations
@@ -82,6 +86,12 @@ def _screened(r, p):
     return phi, d1, d2
 
 
+def _spring(r, p):
+    x = r - p["r0"]
+    k = p["k"] * np.ones_like(r)
+    return 0.5 * k * x * x, k * x, k
+
+
 #: name → (radial function, parameter names, whether it takes a smoothed cutoff ``rc``, range)
 PAIR_FORMS = {
     "lj": (_lj, ("eps", "sigma", "rc"), True, None),
@@ -89,6 +99,7 @@ PAIR_FORMS = {
     "harmonic": (_harmonic, ("eps", "sigma"), False, lambda p: p["sigma"]),
     "sw2": (_sw2, ("eps", "sigma", "A", "B", "p", "q", "a"), False, lambda p: p["a"] * p["sigma"]),
     "screened": (_screened, ("H", "eta", "Z", "lam", "D", "xi", "rc"), True, None),
+    "spring": (_spring, ("k", "r0", "rc"), False, lambda p: p["rc"]),
 }
 
 
