@@ -114,9 +114,11 @@ class Potential:
 
     def energy_forces(self, config: Configuration, nb: Neighbourhood | None = None):
         """Total energy and forces (N, 3); ``nb`` may be a (refreshed) list with a skin."""
-        nb = nb or self.neighbours(config)
-        types = self.types(config)
-        energy, forces = 0.0, np.zeros((config.n_atoms, 3))
+        return self.evaluate(nb or self.neighbours(config), self.types(config))
+
+    def evaluate(self, nb: Neighbourhood, types: np.ndarray):
+        """Energy and forces (N, 3) from a complete neighbour list and species indices (N,)."""
+        energy, forces = 0.0, np.zeros((nb.n_atoms, 3))
         for term in self.terms:
             e, f = term.energy_forces(nb, types)
             energy += e

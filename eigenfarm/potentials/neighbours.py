@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
+from eigenfarm.errors import InputError
 from eigenfarm.structure.box import Box
 
 
@@ -23,7 +24,8 @@ from eigenfarm.structure.box import Box
 class Neighbourhood:
     """Directed neighbour pairs i → j (each unordered bond appears twice when both ends are centres).
 
-    ``i``, ``j`` (P,) atom indices; ``shift`` (P, 3) integer lattice translation such that the separation is
+    ``i``, ``j`` (P,) atom indices; ``shift`` (P, 3) integer-valued lattice translation (stored as float so
+    products with the cell take the BLAS path) such that the separation is
     d = x[j] − x[i] + shift · cell; ``d`` (P, 3) and ``r`` (P,) the separations for the positions last
     given; ``centres`` (N,) bool: atoms whose complete neighbour list (within ``cutoff``) is present.
     """
@@ -104,11 +106,23 @@ def neighbour_pairs(positions: np.ndarray, box: Box, cutoff: float, centres=None
     not_self = ~((g < n) & (g == ci))
     ci, g = ci[not_self], g[not_self]
     j = owner[g]
-    lattice = shift[g] + wrap[j].astype(np.int64) - wrap[ci].astype(np.int64)
+    lattice = shift[g] - wrap[j].astype(np.int64) + wrap[ci].astype(np.int64)
     order = np.lexsort((j, ci))
     ci, j, lattice = ci[order], j[order], lattice[order]
+    lattice = lattice.astype(float)
     d = positions[j] - positions[ci] + lattice @ box.cell
     mask = np.zeros(n, bool)
     mask[centre_idx] = True
     return Neighbourhood(n, cutoff, ci, j, lattice, d, np.sqrt(np.einsum("pk,pk->p", d, d)), mask)
 
+
+
+def check_overlaps(positions: np.ndarray, box: Box, min_distance: float, where: str = "configuration") -> None:
+    """Raise :class:`InputError` naming the closest pair of atoms if any two are nearer than ``min_distance``."""
+    nb = neighbour_pairs(positions, box, min_distance)
+    if len(nb.i):
+        k = int(np.argmin(nb.r))
+        raise InputError(
+            f"{where}: atoms {nb.i[k]} and {nb.j[k]} overlap: distance {nb.r[k]:.4g} < {min_distance:g} "
+            "(duplicated atom or wrong cell?)"
+        )
