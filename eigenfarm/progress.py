@@ -1,6 +1,6 @@
 """Terminal progress for long work: a one-line bar on stderr.
 
-Library functions take a ``progress(done, total, label)`` callback; this is the command line's.  On a
+Library functions take a ``progress(stage, done, total)`` callback; this is the command line's.  On a
 terminal the bar is redrawn in place; in a log file one line is written each time the bar grows.
 """
 
@@ -11,7 +11,7 @@ import time
 
 
 class ProgressBar:
-    """Callable progress reporter: ``bar(done, total, label)`` shows ``label [#####     ] done/total  t s``."""
+    """Callable progress reporter: ``bar(stage, done, total)`` shows ``stage [#####     ] done/total  t s``."""
 
     def __init__(self, stream=None, width: int = 30):
         self.stream = stream or sys.stderr
@@ -20,7 +20,7 @@ class ProgressBar:
         self.interactive = hasattr(self.stream, "isatty") and self.stream.isatty()
         self._shown = None
 
-    def __call__(self, done: int, total: int, label: str = "") -> None:
+    def __call__(self, label: str, done: int, total: int) -> None:
         filled = int(self.width * done / total) if total else self.width
         elapsed = time.monotonic() - self.start
         line = f"{label} [{'#' * filled}{' ' * (self.width - filled)}] {done}/{total} {elapsed:7.1f} s"

@@ -37,3 +37,22 @@ def stillinger_weber_silicon() -> Potential:
     terms = [PairTerm("sw2", ["Si"], {("Si", "Si"): pair}),
              TripletTerm(["Si"], {("Si", "Si", "Si"): triplet})]
     return Potential(["Si"], terms, name="sw-silicon", parameters=parameters)
+
+
+#: eigenfarm's demo glass former (our own choice, not a published model; see
+#: eigenfarm.samples.scenario): σ_ab of the inverse-power-law pairs, reduced units
+DEMO_SIGMA = {"A-A": 1.0, "A-B": 1.15, "B-B": 1.3}
+DEMO_CUTOFF_RATIO = 1.45
+DEMO_EXPONENT = 12
+
+
+def demo_soft_spheres() -> Potential:
+    """The demo scenario's binary soft spheres: φ_ab = ε(σ_ab/r)¹², r_c = 1.45 σ_ab, smoothed to second
+    order (reduced units; species ``A`` and ``B``)."""
+    pairs = {key: {"eps": 1.0, "sigma": s, "n": DEMO_EXPONENT, "rc": DEMO_CUTOFF_RATIO * s}
+             for key, s in DEMO_SIGMA.items()}
+    parameters = {"units": "reduced", "reference": "eigenfarm demo scenario (our own)",
+                  "species": ["A", "B"], "smooth": 2, "pairs": {"ipl": pairs}}
+    table = {tuple(key.split("-")): v for key, v in pairs.items()}
+    return Potential(["A", "B"], [PairTerm("ipl", ["A", "B"], table, smooth=2)], name="demo-soft-spheres",
+                     parameters=parameters)

@@ -48,7 +48,7 @@ from typing import Callable
 
 from eigenfarm.errors import InputError
 from eigenfarm.potentials.base import Potential
-from eigenfarm.potentials.library import stillinger_weber_silicon
+from eigenfarm.potentials.library import demo_soft_spheres, stillinger_weber_silicon
 from eigenfarm.potentials.pair import PAIR_FORMS, PairTerm
 from eigenfarm.potentials.threebody import TripletTerm
 from eigenfarm.structure.units import UNIT_SYSTEMS
@@ -56,7 +56,8 @@ from eigenfarm.structure.units import UNIT_SYSTEMS
 #: the form name of the three-body term in spec strings
 TRIPLET_FORM = "triplet"
 #: name → factory of the named parameter sets
-NAMED_POTENTIALS: dict[str, Callable[[], Potential]] = {"sw-silicon": stillinger_weber_silicon}
+NAMED_POTENTIALS: dict[str, Callable[[], Potential]] = {"sw-silicon": stillinger_weber_silicon,
+                                                        "demo-soft-spheres": demo_soft_spheres}
 
 _TOP_KEYS = ("name", "units", "reference", "notes", "species", "smooth", "pairs", "triplets")
 _LABEL = re.compile(r"^(\*|[A-Za-z0-9_]+)$")

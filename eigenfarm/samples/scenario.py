@@ -10,20 +10,9 @@ family go back to Bernu, Hansen, Hiwatari & Pastore, PRA 36, 4891, 1987; from me
 
 from __future__ import annotations
 
-from eigenfarm.potentials.base import Potential
-from eigenfarm.potentials.pair import PairTerm
+from eigenfarm.potentials.library import demo_soft_spheres as demo_potential
 
 FRACTION_A = 0.6
 DENSITY = 0.80
-SIGMA = {("A", "A"): 1.0, ("A", "B"): 1.15, ("B", "B"): 1.3}
-CUTOFF_RATIO = 1.45
-EXPONENT = 12
 
-
-def demo_potential() -> Potential:
-    """The scenario's pair potential (reduced units)."""
-    table = {pair: {"eps": 1.0, "sigma": s, "n": EXPONENT, "rc": CUTOFF_RATIO * s}
-             for pair, s in SIGMA.items()}
-    return Potential(("A", "B"), [PairTerm("ipl", ("A", "B"), table, smooth=2)], name="demo-soft-spheres",
-                     parameters={"form": "ipl", "smooth": 2,
-                                 "pairs": {f"{a}-{b}": v for (a, b), v in table.items()}})
+__all__ = ["FRACTION_A", "DENSITY", "demo_potential"]

@@ -1,0 +1,94 @@
+"""The ``eigenfarm`` command line: a thin client over the library.
+
+Sub-commands: ``demo`` (the main job on the built-in scenario), ``glass`` (an ensemble of demo
+glasses), ``relax`` (FIRE a configuration to a minimum), ``hessian`` (build, import or inspect a
+Hessian store).  Every failure prints one line ``eigenfarm: error: …`` on stderr and exits non-zero.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from eigenfarm import __version__
+from eigenfarm.errors import ConvergenceError, InputError
+
+DEFAULT_MIN_DISTANCE = 0.25
+
+
+def _cluster_options(parser: argparse.ArgumentParser) -> None:
+    group = parser.add_mutually_exclusive_group()
+    group.add_argument("--workers", type=int, metavar="N",
+                       help="worker processes of the local dask cluster (default: one per core)")
+    group.add_argument("--scheduler", metavar="ADDRESS",
+                       help="address of a running dask scheduler to use instead of a local cluster")
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="eigenfarm", description="Low-frequency vibrational modes of large amorphous solids.")
+    parser.add_argument("--version", action="version", version=f"eigenfarm {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    demo = sub.add_parser("demo", help="run the main job end to end on the built-in glass scenario")
+    demo.add_argument("--out", default="eigenfarm-demo", help="output folder (default: eigenfarm-demo)")
+    demo.add_argument("--atoms", type=int, default=2000, help="atoms per sample (default 2000)")
+    demo.add_argument("--samples", type=int, default=4, help="samples in the ensemble (default 4)")
+    demo.add_argument("--seed", type=int, default=2026, help="ensemble seed (default 2026)")
+    _cluster_options(demo)
+
+    glass = sub.add_parser("glass", help="make an ensemble of quenched demo-scenario glasses (extended XYZ)")
+    glass.add_argument("--out", required=True, help="output folder for sample-NNN.xyz files")
+    glass.add_argument("--atoms", type=int, default=2000, help="atoms per sample (default 2000)")
+    glass.add_argument("--samples", type=int, default=1, help="number of samples (default 1)")
+    glass.add_argument("--seed", type=int, default=0, help="ensemble seed (default 0)")
+    glass.add_argument("--density", type=float, help="number density in σ⁻³ (default: the scenario's 0.80)")
+    glass.add_argument("--anneal-steps", type=int, default=0,
+                       help="Langevin steps before the quench (default 0: instant quench)")
+    glass.add_argument("--temperature", type=float, default=0.5, help="anneal temperature in ε/k_B")
+    glass.add_argument("--overwrite", action="store_true", help="replace sample files that exist")
+    _cluster_options(glass)
+
+    relax = sub.add_parser("relax", help="minimise a configuration's energy with FIRE")
+    relax.add_argument("config", help="extended XYZ file")
+    relax.add_argument("--potential", required=True, help="named set, spec string or potential file")
+    relax.add_argument("--out", required=True, help="relaxed configuration (extended XYZ)")
+    relax.add_argument("--fmax", type=float, default=1e-10, help="force tolerance (default 1e-10)")
+    relax.add_argument("--max-steps", type=int, default=200_000)
+    relax.add_argument("--overwrite", action="store_true")
+
+    hessian = sub.add_parser(
+        "hessian", help="build a Hessian store from a configuration or a Matrix Market file, or describe one")
+    hessian.add_argument("source", help="CONFIG.xyz, MATRIX.mtx, or an existing store H.zarr to describe")
+    hessian.add_argument("--out", help="store to write (H.zarr)")
+    hessian.add_argument("--potential", help="for a configuration: named set, spec string or potential file")
+    hessian.add_argument("--frame", type=int, default=0, help="frame of a multi-frame XYZ file (default 0)")
+    hessian.add_argument("--masses", help="for a .mtx: one mass for all atoms, a text file or a .npy file")
+    hessian.add_argument("--units", choices=["metal", "reduced"], help="for a .mtx: the matrix's unit system")
+    hessian.add_argument("--shard-atoms", type=int, metavar="K", help="atoms per store shard")
+    hessian.add_argument("--min-distance", type=float, default=DEFAULT_MIN_DISTANCE,
+                         help=f"atoms closer than this are an error (default {DEFAULT_MIN_DISTANCE})")
+    hessian.add_argument("--overwrite", action="store_true", help="replace an existing store")
+    _cluster_options(hessian)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point; returns the exit status."""
+    args = _parser().parse_args(argv)
+    from eigenfarm import commands
+
+    try:
+        getattr(commands, f"run_{args.command}")(args)
+    except (InputError, ConvergenceError) as exc:
+        print(f"eigenfarm: error: {exc}", file=sys.stderr)
+        return 2 if isinstance(exc, InputError) else 3
+    except KeyboardInterrupt:
+        print("eigenfarm: interrupted", file=sys.stderr)
+        return 130
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

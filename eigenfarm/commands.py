@@ -1,0 +1,139 @@
+"""What each ``eigenfarm`` sub-command does, given its parsed arguments (see :mod:`eigenfarm.cli`)."""
+
+from __future__ import annotations
+
+import contextlib
+from pathlib import Path
+
+from eigenfarm.errors import InputError
+from eigenfarm.progress import ProgressBar
+
+
+def _client(args):
+    """A dask client from --workers/--scheduler (a context manager)."""
+    from eigenfarm.farm.cluster import open_client
+
+    return open_client(workers=getattr(args, "workers", None), scheduler=getattr(args, "scheduler", None))
+
+
+def _say(text: str) -> None:
+    print(text, flush=True)
+
+
+def _announce(client) -> None:
+    _say(f"dask dashboard: {client.dashboard_link}")
+
+
+def run_glass(args) -> list[Path]:
+    from eigenfarm.samples.ensemble import make_ensemble
+    from eigenfarm.samples.prepare import Recipe
+    from eigenfarm.samples import scenario
+
+    if args.atoms < 2 or args.samples < 1:
+        raise InputError("--atoms must be at least 2 and --samples at least 1")
+    recipe = Recipe(args.atoms, density=args.density or scenario.DENSITY, anneal_steps=args.anneal_steps,
+                    temperature=args.temperature)
+    with _client(args) as client:
+        _announce(client)
+        paths = make_ensemble(recipe, args.seed, args.samples, args.out, client, args.overwrite, ProgressBar())
+    for path in paths:
+        _say(f"wrote {path}")
+    return paths
+
+
+def run_relax(args) -> None:
+    from eigenfarm.potentials.fire import fire_minimise
+    from eigenfarm.potentials.spec import load_potential
+    from eigenfarm.structure.xyz import read_xyz, write_xyz
+
+    out = Path(args.out)
+    if out.exists() and not args.overwrite:
+        raise InputError(f"{out}: already exists (pass --overwrite to replace it)")
+    config = read_xyz(args.config)
+    potential = load_potential(args.potential)
+    potential.types(config)
+    relaxed = fire_minimise(potential, config, fmax=args.fmax, max_steps=args.max_steps,
+                            progress=lambda step, e, f: _say(f"step {step:7d}  energy {e:.10g}  max|F| {f:.3g}"))
+    relaxed.config.info.update({"energy": relaxed.energy, "fmax": relaxed.fmax, "potential": potential.name})
+    write_xyz(out, relaxed.config, overwrite=True)
+    _say(f"{out}: energy {relaxed.energy:.12g} {config.units.energy}, max |F| {relaxed.fmax:.3g} "
+         f"after {relaxed.steps} FIRE steps")
+
+
+def run_hessian(args) -> None:
+    from eigenfarm.store import open_store
+
+    source = Path(args.source)
+    if source.is_dir():
+        if args.out:
+            raise InputError(f"{source}: is a store; --out only goes with a configuration or .mtx source")
+        _say(open_store(source).summary())
+        return
+    if not args.out:
+        raise InputError("--out is required to build a store (or give an existing store to describe it)")
+    if source.suffix.lower() == ".mtx":
+        summary = _import_matrix(args, source)
+    else:
+        summary = _build_from_configuration(args, source)
+    _say(open_store(summary["path"]).summary())
+
+
+def _import_matrix(args, source: Path) -> dict:
+    from eigenfarm.store import import_matrix_market
+
+    if args.masses is None or args.units is None:
+        raise InputError(f"{source}: a Matrix Market source needs --masses and --units")
+    if args.potential:
+        raise InputError(f"{source}: --potential goes with a configuration, not a matrix file")
+    with _client(args) as client:
+        _announce(client)
+        return import_matrix_market(source, args.masses, args.units, args.out, shard_atoms=args.shard_atoms,
+                                    client=client, overwrite=args.overwrite, progress=ProgressBar())
+
+
+def _build_from_configuration(args, source: Path) -> dict:
+    from eigenfarm.potentials.neighbours import check_overlaps
+    from eigenfarm.potentials.spec import load_potential
+    from eigenfarm.store import build_store
+    from eigenfarm.structure.xyz import read_xyz
+
+    if not args.potential:
+        raise InputError(f"{source}: a configuration source needs --potential")
+    if args.masses or args.units:
+        raise InputError(f"{source}: --masses/--units go with a .mtx source (a configuration carries its own)")
+    config = read_xyz(source, args.frame)
+    potential = load_potential(args.potential)
+    potential.types(config)
+    check_overlaps(config.positions, config.box, args.min_distance, str(source))
+    with _client(args) as client:
+        _announce(client)
+        return build_store(config, potential, args.out, shard_atoms=args.shard_atoms, client=client,
+                           overwrite=args.overwrite, progress=ProgressBar(), source_file=source)
+
+
+def run_demo(args) -> None:
+    """The main job on the built-in scenario: an ensemble of glasses → one Hessian store each."""
+    from eigenfarm.samples.ensemble import make_ensemble
+    from eigenfarm.samples.prepare import Recipe
+    from eigenfarm.samples.scenario import demo_potential
+    from eigenfarm.store import build_store, open_store
+    from eigenfarm.structure.xyz import read_xyz
+
+    out = Path(args.out)
+    recipe = Recipe(args.atoms)
+    _say(f"eigenfarm demo: {args.samples} samples of {args.atoms} atoms of the binary soft-sphere glass "
+         f"(instant quench from random positions, FIRE to max|F| < {recipe.fmax:g}), seed {args.seed}")
+    with _client(args) as client:
+        _announce(client)
+        paths = make_ensemble(recipe, args.seed, args.samples, out / "samples", client, progress=ProgressBar())
+        potential = demo_potential()
+        (out / "hessians").mkdir(exist_ok=True)
+        for path in paths:
+            store = out / "hessians" / (path.stem + ".zarr")
+            if store.exists():
+                _say(f"{store}: exists, kept")
+                continue
+            build_store(read_xyz(path), potential, store, client=client, progress=ProgressBar(), source_file=path)
+        for path in paths:
+            _say(open_store(out / "hessians" / (path.stem + ".zarr")).summary())
+    _say(f"demo finished: samples in {out / 'samples'}, Hessian stores in {out / 'hessians'}")
