@@ -57,13 +57,25 @@ def _harmonic(r, p):
             np.where(inside, e / s**2, 0.0))
 
 
+#: exp(ξ/(r − a)) is taken as exactly 0 when ξ/(r − a) < −_EXP_FLOOR (it is < 1e-260 there), which
+#: also keeps the 1/(r − a)⁴ factors of its derivatives finite as r → a
+_EXP_FLOOR = 600.0
+
+
+def exponential_cutoff(r, xi, a):
+    """R(r) = exp(ξ/(r − a)) for r < a else 0, and R', R'' (each shaped like r; r, ξ, a in length)."""
+    gap = r - a
+    x = np.divide(xi, gap, out=np.full(np.shape(r), -np.inf), where=gap < 0)
+    live = x > -_EXP_FLOOR
+    x = np.where(live, x, 0.0)
+    gap = np.where(live, gap, -1.0)
+    value = np.where(live, np.exp(x), 0.0)
+    return value, -value * x / gap, value * (x * x + 2 * x) / (gap * gap)
+
+
 def _sw2(r, p):
-    sig, a = p["sigma"], p["a"]
-    inside = r < a * sig
-    gap = np.where(inside, r - a * sig, -1.0)
-    g = np.where(inside, np.exp(sig / gap), 0.0)
-    g1 = -sig / gap**2 * g
-    g2 = g * (sig**2 / gap**4 + 2 * sig / gap**3)
+    sig = p["sigma"]
+    g, g1, g2 = exponential_cutoff(r, sig, p["a"] * sig)
     ae, B, pp, q = p["A"] * p["eps"], p["B"], p["p"], p["q"]
     f = ae * (B * (sig / r) ** pp - (sig / r) ** q)
     f1 = ae * (-pp * B * (sig / r) ** pp + q * (sig / r) ** q) / r
@@ -142,8 +154,8 @@ class PairTerm(Term):
                 unknown = [n for n in entry if n not in names]
                 if missing or unknown:
                     raise InputError(f"pair form {form}, pair {key[0]}-{key[1]}: "
-                                     + (f"missing {', '.join(missing)} " if missing else "")
-                                     + (f"unknown {', '.join(unknown)}" if unknown else "")
+                                     + "; ".join(([f"missing {', '.join(missing)}"] if missing else [])
+                                                 + ([f"unknown {', '.join(unknown)}"] if unknown else []))
                                      + f" (parameters are {', '.join(names)})")
                 for n in names:
                     self.params[n][x, y] = self.params[n][y, x] = float(entry[n])

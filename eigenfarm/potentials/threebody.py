@@ -35,23 +35,10 @@ import numpy as np
 from eigenfarm.errors import InputError
 from eigenfarm.potentials.base import Term
 from eigenfarm.potentials.neighbours import Neighbourhood
+from eigenfarm.potentials.pair import exponential_cutoff
 
-#: exp(ξ/(r − a)) is taken as exactly 0 when ξ/(r − a) < −_EXP_FLOOR (it is < 1e-260 there), which
-#: also keeps the 1/(r − a)⁴ factors of its derivatives finite as r → a
-_EXP_FLOOR = 600.0
 _ARM_KEYS = ("xi_ij", "a_ij", "xi_ik", "a_ik")
 _SHARED_ARM_KEYS = ("xi", "a")
-
-
-def _radial(r, xi, a):
-    """R(r) = exp(ξ/(r − a)) for r < a else 0, and R', R'' (each shaped like r; r, ξ, a in length)."""
-    gap = r - a
-    x = np.divide(xi, gap, out=np.full(np.shape(r), -np.inf), where=gap < 0)
-    live = x > -_EXP_FLOOR
-    x = np.where(live, x, 0.0)
-    gap = np.where(live, gap, -1.0)
-    value = np.where(live, np.exp(x), 0.0)
-    return value, -value * x / gap, value * (x * x + 2 * x) / (gap * gap)
 
 
 def _angular(c, c0, stiff):
@@ -299,8 +286,8 @@ def _scalar_derivatives(geo: _Geometry, p: dict, second: bool) -> dict:
 
     Keys: ``E``, ``1``, ``2``, ``c`` and, with ``second``, ``11``, ``22``, ``cc``, ``12``, ``1c``, ``2c``.
     """
-    R1, R1d, R1dd = _radial(geo.r1, p["xi1"], p["a1"])
-    R2, R2d, R2dd = _radial(geo.r2, p["xi2"], p["a2"])
+    R1, R1d, R1dd = exponential_cutoff(geo.r1, p["xi1"], p["a1"])
+    R2, R2d, R2dd = exponential_cutoff(geo.r2, p["xi2"], p["a2"])
     g, gd, gdd = _angular(geo.c, p["c0"], p["C"])
     B = p["B"]
     out = {"E": B * R1 * R2 * g, "1": B * R1d * R2 * g, "2": B * R1 * R2d * g, "c": B * R1 * R2 * gd}
