@@ -2,10 +2,10 @@
 
 Atoms are first put in Morton order (:mod:`eigenfarm.store.ordering`), so each shard of consecutive
 atoms is a compact region.  The reordered configuration is scattered to the workers once; each task
-asks the potential for its shard's rows only (:meth:`Potential.hessian_rows` builds neighbour lists
-around those rows), sums them into BSR arrays and writes its shard group.  No process ever holds the
-whole matrix.  The checks of :mod:`eigenfarm.store.validate` then read the shards back, and the digest
-and verdict are recorded before the store is renamed into place (:mod:`eigenfarm.store.atomic`).
+asks the potential for its shard's rows only, on the sub-configuration of the atoms those rows can
+depend on (:mod:`eigenfarm.store.halo`), sums them into BSR arrays and writes its shard group.
+No process ever holds the whole matrix.  The checks of :mod:`eigenfarm.store.validate` then read the
+shards back, and the digest and verdict are recorded before the store is renamed into place (:mod:`eigenfarm.store.atomic`).
 """
 
 from __future__ import annotations
@@ -19,6 +19,7 @@ from eigenfarm.potentials.base import Potential, sum_blocks
 from eigenfarm.store import layout
 from eigenfarm.store.atomic import PartialStore, check_live
 from eigenfarm.store.checks import finite_blocks
+from eigenfarm.store.halo import CellGrid, cell_grid, neighbourhood
 from eigenfarm.store.ordering import BITS, morton_order
 from eigenfarm.store.provenance import configuration_sha256, file_record, jsonable, stamp
 from eigenfarm.store.runner import Runner, runner_for
@@ -52,17 +53,22 @@ def store_summary(path, bounds, verdict, digest, n_blocks: int, started: float) 
             "seconds": time.perf_counter() - started}
 
 
-def _assemble_shard(path: str, config: Configuration, potential: Potential, original: np.ndarray,
-                    k: int, first: int, stop: int) -> str:
+def _assemble_shard(path: str, config: Configuration, potential: Potential, grid: CellGrid,
+                    original: np.ndarray, k: int, first: int, stop: int) -> str:
     """Worker task: Hessian rows of atoms first..stop-1 of the (reordered) ``config`` → shard k.
 
+    Works on the sub-configuration of the atoms those rows can depend on (:mod:`eigenfarm.store.halo`).
     Returns the shard digest.  A non-finite block names its atoms by input index.
     """
     check_live(path)
+    near = neighbourhood(grid, first, stop)
+    local = config.take(near)
+    offset = int(np.searchsorted(near, first))
     with np.errstate(all="ignore"):  # non-finite blocks are found and reported below
-        row, col, blocks = potential.hessian_rows(config, np.arange(first, stop))
-    indptr, indices, data = sum_blocks(row, col, blocks, stop - first, config.n_atoms, row_offset=first)
-    del row, col, blocks
+        row, col, blocks = potential.hessian_rows(local, np.arange(offset, offset + stop - first))
+    indptr, indices, data = sum_blocks(near[row], near[col], blocks, stop - first, config.n_atoms,
+                                       row_offset=first)
+    del row, col, blocks, local
     shard = layout.Shard(first, stop, indptr, indices, data)
     _, bad = finite_blocks(shard)
     if bad:
@@ -115,8 +121,9 @@ def build_store(config: Configuration, potential: Potential, out, *, shard_atoms
         stored = stored.with_positions(stored.box.wrap(stored.positions))
         bounds = layout.plan_bounds(stored.n_atoms, shard_atoms)
         _create(partial.path, stored, order, bounds, provenance)
-        shared, original = runner.scatter(stored), runner.scatter(order)
-        tasks = [runner.submit(_assemble_shard, str(partial.path), shared, potential, original, k,
+        grid = cell_grid(stored.positions, stored.box, potential.cutoff * (potential.halo + 1) * (1 + 1e-9))
+        shared, cells, original = runner.scatter(stored), runner.scatter(grid), runner.scatter(order)
+        tasks = [runner.submit(_assemble_shard, str(partial.path), shared, potential, cells, original, k,
                                int(bounds[k]), int(bounds[k + 1])) for k in range(len(bounds) - 1)]
         digests = runner.gather(tasks, "assemble", progress)
         runner.release(tasks)

@@ -1,7 +1,6 @@
 """Validation on demand: symmetry, finiteness, structure and digests of stores written by hand."""
 
 import numpy as np
-import pytest
 import zarr
 
 from eigenfarm.store import layout, open_store, validate_store
