@@ -102,7 +102,7 @@ class Potential:
             if code is None:
                 atom = int(np.flatnonzero(inverse == k)[0])
                 raise InputError(
-                    f"{config.source}: atom {atom}: species {label!r} has no parameters in potential "
+                    f"{config.source}: atom {atom}: species {str(label)!r} has no parameters in potential "
                     f"{self.name!r} (it knows {', '.join(self.species)})"
                 )
             codes[k] = code

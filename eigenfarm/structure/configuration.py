@@ -28,7 +28,7 @@ def species_masses(species, units: UnitSystem, where: str = "configuration") -> 
         if label not in ATOMIC_WEIGHTS:
             atom = int(np.flatnonzero(inverse == k)[0])
             raise InputError(
-                f"{where}: atom {atom}: unknown species {label!r} in metal units "
+                f"{where}: atom {atom}: unknown species {str(label)!r} in metal units "
                 "(not an element with a standard atomic weight; give explicit masses)"
             )
         table[k] = ATOMIC_WEIGHTS[label]
