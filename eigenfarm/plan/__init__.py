@@ -1,0 +1,1 @@
+"""Planning a solve: window → slices with exact eigenvalue counts from inertia."""

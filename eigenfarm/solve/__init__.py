@@ -1,0 +1,1 @@
+"""Solving for vibrational modes: factorisation backends, the slice solver, residual checks."""
