@@ -23,7 +23,7 @@ from eigenfarm.store.atomic import PartialStore, check_live
 from eigenfarm.store.masses import read_masses
 from eigenfarm.store.matrixmarket import MatrixMarketReader
 from eigenfarm.store.provenance import jsonable, stamp
-from eigenfarm.store.runner import runner_for
+from eigenfarm.farm.runner import runner_for
 from eigenfarm.store.validate import SYMMETRY_TOL
 from eigenfarm.store.writer import finalise, root_attributes, store_summary
 from eigenfarm.structure.units import get_units

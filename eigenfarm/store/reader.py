@@ -15,7 +15,7 @@ import scipy.sparse as sp
 from eigenfarm.errors import InputError
 from eigenfarm.store import layout
 from eigenfarm.store.atomic import is_store
-from eigenfarm.store.runner import runner_for
+from eigenfarm.farm.runner import runner_for
 from eigenfarm.structure.box import Box
 from eigenfarm.structure.units import UnitSystem, get_units
 

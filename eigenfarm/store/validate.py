@@ -27,7 +27,7 @@ import numpy as np
 from eigenfarm.store import layout
 from eigenfarm.store.checks import (ShardReport, SymmetryReport, inspect_shard, symmetry_of_shard,
                                     transposed_parts)
-from eigenfarm.store.runner import Runner
+from eigenfarm.farm.runner import Runner
 
 #: max |Σ_j H_ij| / max|H| accepted for the translational sum rule
 SUM_RULE_TOL = 1e-9
@@ -182,7 +182,7 @@ def validate_store(path, client=None, progress=None, symmetry_tol: float = SYMME
     Also compares each shard's digest with the one recorded at write time and the recomputed content
     digest with the store's ``digest`` attribute (``checks.digests``).
     """
-    from eigenfarm.store.runner import runner_for
+    from eigenfarm.farm.runner import runner_for
 
     attrs = layout.read_attrs(path)
     bounds = np.asarray(attrs["shard_bounds"], dtype=np.int64)

@@ -22,7 +22,7 @@ from eigenfarm.store.checks import finite_blocks
 from eigenfarm.store.halo import CellGrid, cell_grid, neighbourhood
 from eigenfarm.store.ordering import BITS, morton_order
 from eigenfarm.store.provenance import configuration_sha256, file_record, jsonable, stamp
-from eigenfarm.store.runner import Runner, runner_for
+from eigenfarm.farm.runner import Runner, runner_for
 from eigenfarm.store.validate import SYMMETRY_TOL, make_verdict, run_checks
 from eigenfarm.structure.configuration import Configuration
 

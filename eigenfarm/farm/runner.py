@@ -89,12 +89,13 @@ class LocalRunner(Runner):
 class DaskRunner(Runner):
     """Run tasks on a ``distributed.Client``; results stay on the workers until gathered."""
 
-    def __init__(self, client):
+    def __init__(self, client, retries: int = 2):
         self.client = client
+        self.retries = retries
         self.submitted = []
 
     def submit(self, fn, *args):
-        future = self.client.submit(fn, *args, pure=False)
+        future = self.client.submit(fn, *args, pure=False, retries=self.retries)
         self.submitted.append(future)
         return future
 
@@ -129,5 +130,6 @@ class DaskRunner(Runner):
 
 
 def runner_for(client) -> Runner:
-    """A :class:`DaskRunner` on ``client``, or a :class:`LocalRunner` when it is None."""
+    """A :class:`DaskRunner` on ``client`` (a task that fails or loses its worker is retried twice), or a
+    :class:`LocalRunner` when it is None."""
     return LocalRunner() if client is None else DaskRunner(client)
