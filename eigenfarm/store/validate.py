@@ -1,6 +1,6 @@
 """Validating a Hessian store shard by shard: the checks pipeline and the verdict.
 
-Two passes, each one task per shard (in this process or on dask, see :mod:`eigenfarm.store.runner`):
+Two passes, each one task per shard (in this process or on dask, see :mod:`eigenfarm.farm.runner`):
 
 1. *inspect*: read shard k, report finiteness, block-row sums, the largest |entry|, its digest and the
    shards its columns touch; keep its cross-shard blocks transposed, on the worker, for pass 2.
