@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import os
 import re
-import shlex
 from pathlib import Path
 from typing import Iterator
 
@@ -126,33 +125,38 @@ def _read_frame(lines: Iterator[tuple[int, str]], first: tuple[int, str], path: 
     units_name = info.get("units") or ("metal" if set(species) <= set(ATOMIC_WEIGHTS) else "reduced")
     try:
         units = get_units(units_name)
-        box = _parse_box(info, positions, where)
     except InputError as exc:
         raise InputError(f"{where}: {exc}") from None
-    extra = {k: v for k, v in info.items() if k not in {"Lattice", "Properties", "pbc", "units"}}
-    config = Configuration(positions, species, box, units, masses, extra, source=f"{path} (frame at line {lineno})")
+    box = _parse_box(info, positions, where)  # its errors already name the line
     if masses is not None:
-        bad = np.flatnonzero(~(masses > 0))
+        bad = np.flatnonzero(~(np.isfinite(masses) & (masses > 0)))
         if len(bad):
-            raise InputError(f"{path}: line {comment_no + 1 + bad[0]}: atom {bad[0]}: mass must be positive")
-    return config
+            raise InputError(f"{path}: line {comment_no + 1 + bad[0]}: atom {bad[0]}: mass {masses[bad[0]]:g} "
+                             "must be positive")
+    extra = {k: v for k, v in info.items() if k not in {"Lattice", "Properties", "pbc", "units"}}
+    return Configuration(positions, species, box, units, masses, extra, source=f"{path} (frame at line {lineno})")
 
 
 def iter_xyz(path: str | os.PathLike) -> Iterator[Configuration]:
     """Yield each frame of the extended XYZ file ``path`` as a :class:`Configuration`."""
     path = str(path)
     try:
-        handle = open(path, encoding="utf-8")
+        handle = open(path, "rb")
     except OSError as exc:
         raise InputError(f"{path}: cannot open: {exc.strerror}") from None
+
+    def numbered():
+        for k, raw in enumerate(handle):
+            try:
+                yield k + 1, raw.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                raise InputError(f"{path}: line {k + 1}: not UTF-8 text (byte {exc.start + 1} of the line)") from None
+
     with handle:
-        lines = ((k + 1, line) for k, line in enumerate(handle))
-        try:
-            for first in lines:
-                if first[1].strip():
-                    yield _read_frame(lines, first, path)
-        except UnicodeDecodeError:
-            raise InputError(f"{path}: not a text file (UTF-8 decoding failed)") from None
+        lines = numbered()
+        for first in lines:
+            if first[1].strip():
+                yield _read_frame(lines, first, path)
 
 
 def read_xyz(path: str | os.PathLike, frame: int = 0) -> Configuration:
@@ -161,6 +165,20 @@ def read_xyz(path: str | os.PathLike, frame: int = 0) -> Configuration:
         if k == frame:
             return config
     raise InputError(f"{path}: has no frame {frame}")
+
+
+def _info_item(key, value) -> str:
+    """``key=value`` as :func:`_parse_comment` reads it back: quoted when empty, holding whitespace or
+    starting with a quote; a value no quoting can carry (a line break, both quote kinds) is refused."""
+    key, text = str(key), str(value)
+    if not re.fullmatch(r"[A-Za-z_][\w\-]*", key):
+        raise InputError(f"info key {key!r} cannot be written (letters, digits, _ and -, not first a digit)")
+    if text and text[0] not in "\"'" and not any(c.isspace() for c in text):
+        return f"{key}={text}"
+    quote = '"' if '"' not in text else "'"
+    if "\n" in text or "\r" in text or quote in text:
+        raise InputError(f"info {key}={text!r} cannot be written on an extended XYZ comment line")
+    return f"{key}={quote}{text}{quote}"
 
 
 def format_xyz(config: Configuration, write_masses: bool | None = None) -> str:
@@ -175,8 +193,7 @@ def format_xyz(config: Configuration, write_masses: bool | None = None) -> str:
     props = "species:S:1:pos:R:3" + (":masses:R:1" if write_masses else "")
     lattice = " ".join(repr(float(x)) for x in config.box.cell.reshape(-1))
     pbc = " ".join("T" if p else "F" for p in config.box.pbc)
-    extra = " ".join(f"{k}={shlex.quote(str(v))}" if " " in str(v) else f"{k}={v}"
-                     for k, v in config.info.items())
+    extra = " ".join(_info_item(k, v) for k, v in config.info.items())
     header = f'Lattice="{lattice}" Properties={props} pbc="{pbc}" units={config.units.name} {extra}'.rstrip()
     table = np.column_stack([config.positions, config.masses[:, None]] if write_masses else [config.positions])
     numbers = [" ".join(f"{v:.17g}" for v in row) for row in table.tolist()]
@@ -196,7 +213,11 @@ def write_xyz(path: str | os.PathLike, configs, overwrite: bool = False) -> None
     if path.exists() and not overwrite:
         raise InputError(f"{path}: already exists (pass overwrite to replace it)")
     tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
-    with open(tmp, "w", encoding="utf-8") as handle:
-        for config in configs:
-            handle.write(format_xyz(config))
+    try:
+        with open(tmp, "w", encoding="utf-8") as handle:
+            for config in configs:
+                handle.write(format_xyz(config))
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
     os.replace(tmp, path)
