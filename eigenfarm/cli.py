@@ -17,36 +17,67 @@ from eigenfarm.errors import ConvergenceError, InputError
 DEFAULT_MIN_DISTANCE = 0.25
 
 
+class _Parser(argparse.ArgumentParser):
+    """Usage mistakes end like every other failure: one line ``eigenfarm: error: …``, status 2."""
+
+    def error(self, message: str):
+        self.exit(2, f"eigenfarm: error: {message} (see '{self.prog} --help')\n")
+
+
+def _checked(kind, minimum: str):
+    """An argparse type: a finite ``kind`` (int or float) that is positive (``minimum="positive"``) or
+    not negative (``"non-negative"``)."""
+    noun = "an integer" if kind is int else "a number"
+
+    def parse(text: str):
+        try:
+            value = kind(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{text!r} is not {noun}") from None
+        if not (value > 0 if minimum == "positive" else value >= 0) or value == float("inf"):
+            raise argparse.ArgumentTypeError(f"must be finite and {minimum}, got {text}")
+        return value
+    return parse
+
+
+def _positive(kind):
+    return _checked(kind, "positive")
+
+
+def _non_negative(kind):
+    return _checked(kind, "non-negative")
+
+
 def _cluster_options(parser: argparse.ArgumentParser) -> None:
     group = parser.add_mutually_exclusive_group()
-    group.add_argument("--workers", type=int, metavar="N",
+    group.add_argument("--workers", type=_positive(int), metavar="N",
                        help="worker processes of the local dask cluster (default: one per core)")
     group.add_argument("--scheduler", metavar="ADDRESS",
                        help="address of a running dask scheduler to use instead of a local cluster")
 
 
 def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="eigenfarm", description="Low-frequency vibrational modes of large amorphous solids.")
     parser.add_argument("--version", action="version", version=f"eigenfarm {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     demo = sub.add_parser("demo", help="run the main job end to end on the built-in glass scenario")
     demo.add_argument("--out", default="eigenfarm-demo", help="output folder (default: eigenfarm-demo)")
-    demo.add_argument("--atoms", type=int, default=2000, help="atoms per sample (default 2000)")
-    demo.add_argument("--samples", type=int, default=4, help="samples in the ensemble (default 4)")
+    demo.add_argument("--atoms", type=_positive(int), default=2000, help="atoms per sample (default 2000)")
+    demo.add_argument("--samples", type=_positive(int), default=4, help="samples in the ensemble (default 4)")
     demo.add_argument("--seed", type=int, default=2026, help="ensemble seed (default 2026)")
     _cluster_options(demo)
 
     glass = sub.add_parser("glass", help="make an ensemble of quenched demo-scenario glasses (extended XYZ)")
     glass.add_argument("--out", required=True, help="output folder for sample-NNN.xyz files")
-    glass.add_argument("--atoms", type=int, default=2000, help="atoms per sample (default 2000)")
-    glass.add_argument("--samples", type=int, default=1, help="number of samples (default 1)")
+    glass.add_argument("--atoms", type=_positive(int), default=2000, help="atoms per sample (default 2000)")
+    glass.add_argument("--samples", type=_positive(int), default=1, help="number of samples (default 1)")
     glass.add_argument("--seed", type=int, default=0, help="ensemble seed (default 0)")
-    glass.add_argument("--density", type=float, help="number density in σ⁻³ (default: the scenario's 0.80)")
-    glass.add_argument("--anneal-steps", type=int, default=0,
+    glass.add_argument("--density", type=_positive(float), help="number density in σ⁻³ (default: the scenario's 0.80)")
+    glass.add_argument("--anneal-steps", type=_non_negative(int), default=0,
                        help="Langevin steps before the quench (default 0: instant quench)")
-    glass.add_argument("--temperature", type=float, default=0.5, help="anneal temperature in ε/k_B")
+    glass.add_argument("--temperature", type=_non_negative(float), default=0.5, help="anneal temperature in ε/k_B")
     glass.add_argument("--overwrite", action="store_true", help="replace sample files that exist")
     _cluster_options(glass)
 
@@ -54,8 +85,8 @@ def _parser() -> argparse.ArgumentParser:
     relax.add_argument("config", help="extended XYZ file")
     relax.add_argument("--potential", required=True, help="named set, spec string or potential file")
     relax.add_argument("--out", required=True, help="relaxed configuration (extended XYZ)")
-    relax.add_argument("--fmax", type=float, default=1e-10, help="force tolerance (default 1e-10)")
-    relax.add_argument("--max-steps", type=int, default=200_000)
+    relax.add_argument("--fmax", type=_positive(float), default=1e-10, help="force tolerance (default 1e-10)")
+    relax.add_argument("--max-steps", type=_positive(int), default=200_000)
     relax.add_argument("--overwrite", action="store_true")
 
     hessian = sub.add_parser(
@@ -63,11 +94,11 @@ def _parser() -> argparse.ArgumentParser:
     hessian.add_argument("source", help="CONFIG.xyz, MATRIX.mtx, or an existing store H.zarr to describe")
     hessian.add_argument("--out", help="store to write (H.zarr)")
     hessian.add_argument("--potential", help="for a configuration: named set, spec string or potential file")
-    hessian.add_argument("--frame", type=int, default=0, help="frame of a multi-frame XYZ file (default 0)")
+    hessian.add_argument("--frame", type=_non_negative(int), default=0, help="frame of a multi-frame XYZ file (default 0)")
     hessian.add_argument("--masses", help="for a .mtx: one mass for all atoms, a text file or a .npy file")
     hessian.add_argument("--units", choices=["metal", "reduced"], help="for a .mtx: the matrix's unit system")
-    hessian.add_argument("--shard-atoms", type=int, metavar="K", help="atoms per store shard")
-    hessian.add_argument("--min-distance", type=float, default=DEFAULT_MIN_DISTANCE,
+    hessian.add_argument("--shard-atoms", type=_positive(int), metavar="K", help="atoms per store shard")
+    hessian.add_argument("--min-distance", type=_non_negative(float), default=DEFAULT_MIN_DISTANCE,
                          help=f"atoms closer than this are an error (default {DEFAULT_MIN_DISTANCE})")
     hessian.add_argument("--overwrite", action="store_true", help="replace an existing store")
     _cluster_options(hessian)

@@ -69,8 +69,12 @@ def run_hessian(args) -> None:
             raise InputError(f"{source}: is a store; --out only goes with a configuration or .mtx source")
         _say(open_store(source).summary())
         return
+    if not source.exists():
+        raise InputError(f"{source}: no such file or store")
     if not args.out:
         raise InputError("--out is required to build a store (or give an existing store to describe it)")
+    if Path(args.out).exists() and not args.overwrite:
+        raise InputError(f"{args.out}: already exists (pass --overwrite to replace it)")
     if source.suffix.lower() == ".mtx":
         summary = _import_matrix(args, source)
     else:
