@@ -47,5 +47,8 @@ def open_client(workers: int | None = None, scheduler: str | None = None,
         return
     n = workers or default_workers()
     with LocalCluster(n_workers=n, threads_per_worker=1, processes=True, memory_limit=memory_limit,
-                      dashboard_address=":0", env=dict(WORKER_ENV)) as cluster, Client(cluster) as client:
+                      dashboard_address=":0", env=dict(WORKER_ENV),
+                      # task errors reach the caller as exceptions; the workers' own log of them
+                      # ("Compute Failed" and a traceback) would break the one-line error contract
+                      silence_logs=logging.CRITICAL if quiet else logging.WARN) as cluster, Client(cluster) as client:
         yield client
