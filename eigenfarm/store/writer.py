@@ -66,8 +66,8 @@ def _assemble_shard(path: str, config: Configuration, potential: Potential, grid
     offset = int(np.searchsorted(near, first))
     with np.errstate(all="ignore"):  # non-finite blocks are found and reported below
         row, col, blocks = potential.hessian_rows(local, np.arange(offset, offset + stop - first))
-    indptr, indices, data = sum_blocks(near[row], near[col], blocks, stop - first, config.n_atoms,
-                                       row_offset=first)
+        indptr, indices, data = sum_blocks(near[row], near[col], blocks, stop - first, config.n_atoms,
+                                           row_offset=first)
     del row, col, blocks, local
     shard = layout.Shard(first, stop, indptr, indices, data)
     _, bad = finite_blocks(shard)
