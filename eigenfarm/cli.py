@@ -2,7 +2,8 @@
 
 Sub-commands: ``demo`` (the main job on the built-in scenario), ``glass`` (an ensemble of demo
 glasses), ``relax`` (FIRE a configuration to a minimum), ``hessian`` (build, import or inspect a
-Hessian store).  Every failure prints one line ``eigenfarm: error: …`` on stderr and exits non-zero.
+Hessian store), ``solve`` (modes of one store or an ensemble into mode catalogues), ``modes``
+(print a catalogue's summary).  Every failure prints one line ``eigenfarm: error: …`` on stderr and exits non-zero.
 """
 
 from __future__ import annotations
@@ -88,6 +89,29 @@ def _parser() -> argparse.ArgumentParser:
     relax.add_argument("--fmax", type=_positive(float), default=1e-10, help="force tolerance (default 1e-10)")
     relax.add_argument("--max-steps", type=_positive(int), default=200_000)
     relax.add_argument("--overwrite", action="store_true")
+
+    solve = sub.add_parser(
+        "solve", help="all modes in a frequency window, or the lowest K, of one store or an ensemble of stores")
+    solve.add_argument("stores", nargs="+", metavar="H.zarr", help="Hessian store(s); several make an ensemble job")
+    solve.add_argument("--out", required=True,
+                       help="catalogue to write (modes.zarr); with several stores a folder receiving NAME.modes.zarr each")
+    which = solve.add_mutually_exclusive_group(required=True)
+    which.add_argument("--window", metavar="LO:HI",
+                       help="frequency window in the store's unit (THz for metal units, ω for reduced)")
+    which.add_argument("--lowest", type=int, metavar="K", help="the K lowest modes above the zero modes")
+    solve.add_argument("--backend", default="auto", help="factorisation backend: auto, superlu, dense, cholmod")
+    solve.add_argument("--slice-modes", type=int, default=40, metavar="M",
+                       help="target number of modes per slice (default 40)")
+    solve.add_argument("--tol", type=float, default=1e-12, help="Lanczos convergence tolerance (default 1e-12)")
+    solve.add_argument("--zero-tol", type=float, default=1e-8,
+                       help="eigenvalues with |λ| ≤ this × λ_max are zero modes (default 1e-8)")
+    solve.add_argument("--strict", action="store_true", help="negative eigenvalues are an error, not a warning")
+    solve.add_argument("--inline", action="store_true", help="run every task in this process (no dask cluster)")
+    solve.add_argument("--overwrite", action="store_true", help="replace existing catalogues")
+    _cluster_options(solve)
+
+    modes = sub.add_parser("modes", help="print the summary of a mode catalogue")
+    modes.add_argument("catalogue", nargs="+", help="mode catalogue(s) (modes.zarr)")
 
     hessian = sub.add_parser(
         "hessian", help="build a Hessian store from a configuration or a Matrix Market file, or describe one")

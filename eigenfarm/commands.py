@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-import contextlib
+import sys
 from pathlib import Path
 
 from eigenfarm.errors import InputError
@@ -113,6 +113,86 @@ def _build_from_configuration(args, source: Path) -> dict:
         _announce(client)
         return build_store(config, potential, args.out, shard_atoms=args.shard_atoms, client=client,
                            overwrite=args.overwrite, progress=ProgressBar(), source_file=source)
+
+
+def _window(text: str) -> tuple[float, float]:
+    try:
+        lo, hi = (float(part) for part in text.split(":"))
+    except ValueError:
+        raise InputError(f"--window {text!r}: expected LO:HI, two frequencies separated by a colon") from None
+    if not hi > lo:
+        raise InputError(f"--window {text!r}: empty window (HI must exceed LO)")
+    return lo, hi
+
+
+def _catalogue_paths(stores: list[str], out: str) -> list[Path]:
+    if len(stores) == 1:
+        return [Path(out)]
+    names = [Path(s.rstrip("/")).name.removesuffix(".zarr") for s in stores]
+    if len(set(names)) != len(names):
+        raise InputError("several stores share a name; give them distinct names to solve them together")
+    Path(out).mkdir(parents=True, exist_ok=True)
+    return [Path(out) / f"{name}.modes.zarr" for name in names]
+
+
+def _request(args):
+    from eigenfarm.farm.solvejob import SolveRequest
+    from eigenfarm.solve.backends import get_backend
+    from eigenfarm.solve.slicer import LanczosSettings
+
+    get_backend(args.backend)  # unknown or uninstalled backends fail here, before any work
+    if args.slice_modes < 1:
+        raise InputError("--slice-modes must be at least 1")
+    return SolveRequest(window=_window(args.window) if args.window else None, lowest=args.lowest,
+                        backend=args.backend, slice_modes=args.slice_modes, zero_tol=args.zero_tol,
+                        strict=args.strict, lanczos=LanczosSettings(tol=args.tol))
+
+
+def solve_stores(stores, outs, request, client, overwrite: bool) -> list[Path]:
+    """Plan and solve ``stores`` into catalogues ``outs`` on ``client`` (None: in this process)."""
+    from eigenfarm.farm import solvejob
+    from eigenfarm.farm.runner import runner_for
+    from eigenfarm.solve.slicer import IncompleteSlice
+
+    runner = runner_for(client)
+    notice = lambda text: print(text, file=sys.stderr, flush=True)  # noqa: E731
+    jobs = []
+    try:
+        for store, out in zip(stores, outs):
+            jobs.append(solvejob.prepare(runner, store, out, request, overwrite, notice))
+            plan = jobs[-1].plan
+            _say(f"{store}: {plan.expected} modes in {len(plan.slices)} slices "
+                 f"({plan.n_zero} zero modes, {plan.n_negative} negative)")
+        return solvejob.run(runner, jobs, request, overwrite, ProgressBar())
+    except IncompleteSlice as exc:
+        raise InputError(f"{exc}; finished slices are kept, rerun the same command to resume") from None
+    except Exception as exc:
+        if type(exc).__name__ in {"KilledWorker", "FutureCancelledError", "CommClosedError"}:
+            raise InputError(f"the cluster lost a task ({type(exc).__name__}: {exc}); finished slices are "
+                             "kept in the .work folder, rerun the same command to resume") from None
+        raise
+
+
+def run_solve(args) -> None:
+    from eigenfarm.catalogue import open_catalogue
+
+    request = _request(args)
+    outs = _catalogue_paths(args.stores, args.out)
+    if args.inline:
+        paths = solve_stores(args.stores, outs, request, None, args.overwrite)
+    else:
+        with _client(args) as client:
+            _announce(client)
+            paths = solve_stores(args.stores, outs, request, client, args.overwrite)
+    for path in paths:
+        _say(open_catalogue(path).summary())
+
+
+def run_modes(args) -> None:
+    from eigenfarm.catalogue import open_catalogue
+
+    for path in args.catalogue:
+        _say(open_catalogue(path).summary())
 
 
 def run_demo(args) -> None:

@@ -29,19 +29,31 @@ CLUSTER_TOL = 1e-9
 
 class _Sink:
     """Receives the stitched modes: remembers every eigenvalue (for the counts), writes the lowest
-    ``keep`` modes (all when None)."""
+    ``keep`` modes (all when None) and the rest of the degenerate level the ``keep``-th mode belongs to
+    (eigenvalues within ``tol`` of it), so a lowest-K catalogue never holds part of a level."""
 
-    def __init__(self, writer: CatalogueWriter, keep: int | None):
-        self.writer, self.keep = writer, keep
+    def __init__(self, writer: CatalogueWriter, keep: int | None, tol: float):
+        self.writer, self.keep, self.tol = writer, keep, tol
         self.eigenvalues: list[np.ndarray] = []
         self.written = 0
+        self.level_top: float | None = None
 
     def __call__(self, eigenvalues, residuals, slices, vectors) -> None:
-        self.eigenvalues.append(np.asarray(eigenvalues, dtype=float))
-        take = len(eigenvalues) if self.keep is None else max(0, min(len(eigenvalues), self.keep - self.written))
+        eigenvalues = np.asarray(eigenvalues, dtype=float)
+        self.eigenvalues.append(eigenvalues)
+        take = len(eigenvalues) if self.keep is None else self._take(eigenvalues)
         if take:
             self.writer.append(eigenvalues[:take], residuals[:take], slices[:take], vectors[:take])
             self.written += take
+
+    def _take(self, eigenvalues: np.ndarray) -> int:
+        take = max(0, min(len(eigenvalues), self.keep - self.written))
+        if self.level_top is None and self.written + take == self.keep and take:
+            self.level_top = float(eigenvalues[take - 1]) + self.tol
+        if self.level_top is not None:
+            while take < len(eigenvalues) and eigenvalues[take] <= self.level_top:
+                take += 1
+        return take
 
     def all_eigenvalues(self) -> np.ndarray:
         return np.concatenate(self.eigenvalues) if self.eigenvalues else np.zeros(0)
@@ -74,7 +86,7 @@ def write_catalogue(out, work: WorkFolder, plan: Plan, info: dict, *, overwrite:
     _check_plan(plan, work)
     tol = cluster_tol * plan.scale
     with CatalogueWriter(out, int(info["n_atoms"]), units, overwrite=overwrite) as writer:
-        sink = _Sink(writer, plan.keep)
+        sink = _Sink(writer, plan.keep, tol)
         stitcher = Stitcher(plan.slices, writer.n_dof, plan.scale, tol, sink, writer.block_modes)
         runs = {}
         for done, piece in enumerate(plan.slices, 1):

@@ -56,7 +56,7 @@ def format_summary(catalogue) -> str:
         f"Mode catalogue  {catalogue.path}",
         f"  modes          {catalogue.n_modes:,} with {window['frequency'][0]:.6g} < f ≤ {window['frequency'][1]:.6g} "
         f"{units.frequency_unit} (λ {window['eigenvalue'][0]:.6g} … {window['eigenvalue'][1]:.6g} {lam_unit})"
-        + (f", the lowest {attrs['keep_lowest']} kept" if attrs.get("keep_lowest") else ""),
+        + _kept(attrs.get("keep_lowest"), catalogue.n_modes),
         f"  system         {catalogue.n_atoms:,} atoms ({catalogue.n_dof:,} dof), units {units.name}, "
         f"Hessian {attrs['hessian_digest'][:16]}…",
         f"  completeness   {'COMPLETE' if verdict['complete'] else 'INCOMPLETE'}: {verdict['reason']}",
@@ -74,3 +74,12 @@ def format_summary(catalogue) -> str:
         f"  created        {attrs.get('created', '?')} by eigenfarm {attrs.get('eigenfarm_version', '?')}",
     ]
     return "\n".join(lines)
+
+
+def _kept(asked: int | None, held: int) -> str:
+    """How a lowest-K request was met: K modes, or more to complete the K-th mode's degenerate level."""
+    if not asked:
+        return ""
+    if held > asked:
+        return f": the lowest {asked} asked, {held} kept to complete the degenerate level of the {asked}th"
+    return f": the lowest {asked}"

@@ -9,8 +9,8 @@ Eigenvalues with |λ| ≤ τ = ``zero_tol`` × λ_max are zero modes (translatio
 floppy modes), reported apart; eigenvalues below −τ are negative: the configuration is not at a minimum.
 
 Slice boundaries start equally spaced in λ^{3/2} (a Debye density of states, N(ω) ∝ ω³, spreads modes
-evenly that way) and slices holding more than 1.5 × the target are split until they do not (or
-cannot: a degenerate set is never split).  Every boundary's count is exact, so every slice knows how
+evenly that way) and slices holding more than 1.5 × the target are split, for a few rounds at most (a degenerate
+set cannot be split); empty slices are merged into a neighbour.  Every boundary's count is exact, so every slice knows how
 many modes it must return.
 """
 
@@ -26,7 +26,7 @@ from eigenfarm.errors import InputError
 #: shifts → [(shift used, eigenvalues below it)]
 Counter = Callable[[list[float]], list[tuple[float, int]]]
 
-MAX_REFINE_ROUNDS = 8
+MAX_REFINE_ROUNDS = 4
 
 
 @dataclass(frozen=True)
@@ -105,6 +105,10 @@ def place_slices(counter: Counter, lo: float, hi: float, n_lo: int, n_hi: int, t
     counts = [points[b] for b in bounds]
     if any(c2 < c1 for c1, c2 in zip(counts[:-1], counts[1:])):
         raise RuntimeError(f"inertia counts are not monotone in the shift: {list(zip(bounds, counts))}")
+    # a boundary next to an empty slice is dropped, merging that slice into its neighbour
+    last = len(bounds) - 1
+    bounds = [b for k, b in enumerate(bounds)
+              if k in (0, last) or points[bounds[0]] < points[b] < points[bounds[k + 1]]]
     return [Slice(k, a, b, points[b] - points[a]) for k, (a, b) in enumerate(zip(bounds[:-1], bounds[1:]))]
 
 
@@ -147,13 +151,33 @@ def plan_lowest(counter: Counter, scale: float, k: int, target: int, zero_tol: f
 
 
 def _bracket_kth(counter: Counter, tau: float, scale: float, base: int, k: int) -> tuple[float, int]:
-    """A shift hi with N(hi) − base ≥ k, found by Debye-law extrapolation from probe counts."""
-    probe = max(1e-4 * scale, 10 * tau)
+    """A shift hi with k ≤ N(hi) − base, not far above: Debye-law extrapolation from probe counts
+    (N ∝ λ^{3/2}), then geometric bisection while more than 2k modes lie below."""
+    below, probe = (tau, 0), max(1e-4 * scale, 10 * tau)
     for _ in range(60):
         (probe, count), = counter([probe])
         found = count - base
         if found >= k:
-            return probe, count
+            if found <= 2 * k or probe <= below[0] * (1 + 1e-6):
+                return probe, count
+            above, probe = (probe, count), float(np.sqrt(below[0] * probe))
+            return _narrow(counter, below[0], above, base, k)
+        below = (probe, found)
         growth = (1.3 * k / found) ** (2 / 3) if found > 0 else 8.0
-        probe = min(probe * max(growth, 1.2), 1.01 * scale) if probe < scale else probe * 2
+        probe = probe * max(growth, 1.2)
     raise RuntimeError(f"could not bracket the {k} lowest modes (last probe {probe:g}, {found} found)")
+
+
+def _narrow(counter: Counter, lo: float, above: tuple[float, int], base: int, k: int) -> tuple[float, int]:
+    """Shrink (lo, above] geometrically while the upper end holds more than 2k modes and its lower end
+    fewer than k (at most 12 counts: a degenerate shell may make 2k unreachable)."""
+    for _ in range(12):
+        mid = float(np.sqrt(lo * above[0]))
+        (mid, count), = counter([mid])
+        if count - base >= k:
+            above = (mid, count)
+            if count - base <= 2 * k:
+                break
+        else:
+            lo = mid
+    return above
