@@ -81,6 +81,7 @@ def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: b
             notice: Callable[[str], None]) -> StoreJob:
     """Open ``store``, plan its slices (or reuse the plan of an interrupted run) and open its work folder."""
     handle = open_store(store)
+    _refuse_invalid(store, handle.validation)
     out = Path(out)
     if out.exists() and not overwrite:
         raise InputError(f"{out}: already exists (pass --overwrite to replace it)")
@@ -95,6 +96,16 @@ def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: b
             "store": str(Path(store).resolve())}
     _census_notice(plan, info, request, store, notice)
     return StoreJob(str(store), out, plan, work, info)
+
+
+def _refuse_invalid(store, verdict: dict) -> None:
+    """A store whose validation failed (non-finite, asymmetric, …) cannot be solved: say which check."""
+    if verdict.get("passed"):
+        return
+    failed = [name for name, check in verdict.get("checks", {}).items()
+              if check.get("passed") is False and check.get("severity") == "error"]
+    raise InputError(f"{store}: failed validation ({', '.join(failed) or 'unknown check'}); "
+                     "see 'eigenfarm hessian STORE' for the verdict")
 
 
 def _census_notice(plan: Plan, info: dict, request: SolveRequest, store, notice) -> None:

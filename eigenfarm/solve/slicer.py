@@ -90,12 +90,12 @@ def solve_slice(D: sp.spmatrix, backend: Backend, lo: float, hi: float, expected
     while len(values) < expected and runs <= settings.max_restarts:
         missing = expected - len(values)
         k = min(missing + settings.extra, n - 1 - vectors.shape[1])
-        ncv = min(n, settings.ncv or max(2 * k + 1, 20))
+        ncv = min(n, max(settings.ncv or max(2 * k + 1, 20), k + 1))
         op = _deflated_operator(factor, vectors if vectors.shape[1] else None)
         v0 = rng.standard_normal(n)
         if vectors.shape[1]:
             v0 -= vectors @ (vectors.T @ v0)
-        theta, ritz = sla.eigsh(op, k=k, which="LM", ncv=ncv, tol=settings.tol, v0=v0)
+        theta, ritz = _lanczos(op, k, ncv, settings.tol, v0)
         runs += 1
         keep = np.abs(theta) > 1e-300
         lam = factor.sigma + 1.0 / theta[keep]
@@ -113,6 +113,15 @@ def solve_slice(D: sp.spmatrix, backend: Backend, lo: float, hi: float, expected
     residuals = np.linalg.norm(D @ vectors - vectors * values, axis=0) / scale
     stats = {"shift": factor.sigma, "runs": runs, **{f"factor_{k}": v for k, v in factor.stats.items()}}
     return SliceResult(values, vectors, residuals, stats)
+
+
+def _lanczos(op, k: int, ncv: int, tol: float, v0: np.ndarray):
+    """k largest-magnitude eigenpairs of ``op`` by ARPACK; on non-convergence, those that did converge
+    (the caller restarts with them deflated)."""
+    try:
+        return sla.eigsh(op, k=k, which="LM", ncv=ncv, tol=tol, v0=v0)
+    except sla.ArpackNoConvergence as exc:
+        return exc.eigenvalues, exc.eigenvectors
 
 
 def _orthonormal_ritz(D, basis: np.ndarray, approx: np.ndarray):
