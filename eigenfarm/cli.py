@@ -68,6 +68,7 @@ def _parser() -> argparse.ArgumentParser:
     demo.add_argument("--atoms", type=_positive(int), default=2000, help="atoms per sample (default 2000)")
     demo.add_argument("--samples", type=_positive(int), default=4, help="samples in the ensemble (default 4)")
     demo.add_argument("--seed", type=int, default=2026, help="ensemble seed (default 2026)")
+    demo.add_argument("--lowest", type=_positive(int), default=50, help="modes per sample to compute (default 50)")
     _cluster_options(demo)
 
     glass = sub.add_parser("glass", help="make an ensemble of quenched demo-scenario glasses (extended XYZ)")
@@ -98,9 +99,9 @@ def _parser() -> argparse.ArgumentParser:
     which = solve.add_mutually_exclusive_group(required=True)
     which.add_argument("--window", metavar="LO:HI",
                        help="frequency window in the store's unit (THz for metal units, ω for reduced)")
-    which.add_argument("--lowest", type=int, metavar="K", help="the K lowest modes above the zero modes")
+    which.add_argument("--lowest", type=_positive(int), metavar="K", help="the K lowest modes above the zero modes")
     solve.add_argument("--backend", default="auto", help="factorisation backend: auto, superlu, dense, cholmod")
-    solve.add_argument("--slice-modes", type=int, default=40, metavar="M",
+    solve.add_argument("--slice-modes", type=_positive(int), default=40, metavar="M",
                        help="target number of modes per slice (default 40)")
     solve.add_argument("--tol", type=float, default=1e-12, help="Lanczos convergence tolerance (default 1e-12)")
     solve.add_argument("--zero-tol", type=float, default=1e-8,

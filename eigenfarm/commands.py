@@ -196,7 +196,10 @@ def run_modes(args) -> None:
 
 
 def run_demo(args) -> None:
-    """The main job on the built-in scenario: an ensemble of glasses → one Hessian store each."""
+    """The main job on the built-in scenario: an ensemble of glasses → Hessian stores → the lowest modes
+    of every sample in one ensemble solve → mode catalogues."""
+    from eigenfarm.catalogue import open_catalogue
+    from eigenfarm.farm.solvejob import SolveRequest
     from eigenfarm.samples.ensemble import make_ensemble
     from eigenfarm.samples.prepare import Recipe
     from eigenfarm.samples.scenario import demo_potential
@@ -206,18 +209,27 @@ def run_demo(args) -> None:
     out = Path(args.out)
     recipe = Recipe(args.atoms)
     _say(f"eigenfarm demo: {args.samples} samples of {args.atoms} atoms of the binary soft-sphere glass "
-         f"(instant quench from random positions, FIRE to max|F| < {recipe.fmax:g}), seed {args.seed}")
+         f"(instant quench from random positions, FIRE to max|F| < {recipe.fmax:g}), seed {args.seed}; "
+         f"the lowest {args.lowest} modes of each")
     with _client(args) as client:
         _announce(client)
         paths = make_ensemble(recipe, args.seed, args.samples, out / "samples", client, progress=ProgressBar())
         potential = demo_potential()
         (out / "hessians").mkdir(exist_ok=True)
-        for path in paths:
-            store = out / "hessians" / (path.stem + ".zarr")
+        stores = [out / "hessians" / (path.stem + ".zarr") for path in paths]
+        for path, store in zip(paths, stores):
             if store.exists():
                 _say(f"{store}: exists, kept")
                 continue
             build_store(read_xyz(path), potential, store, client=client, progress=ProgressBar(), source_file=path)
-        for path in paths:
-            _say(open_store(out / "hessians" / (path.stem + ".zarr")).summary())
-    _say(f"demo finished: samples in {out / 'samples'}, Hessian stores in {out / 'hessians'}")
+        _say(open_store(stores[0]).summary())
+        (out / "modes").mkdir(exist_ok=True)
+        catalogues = [out / "modes" / (path.stem + ".modes.zarr") for path in paths]
+        todo = [(s, c) for s, c in zip(stores, catalogues) if not c.exists()]
+        if todo:
+            solve_stores([str(s) for s, _ in todo], [c for _, c in todo], SolveRequest(lowest=args.lowest),
+                         client, overwrite=False)
+    for catalogue in catalogues:
+        _say(open_catalogue(catalogue).summary())
+    _say(f"demo finished: samples in {out / 'samples'}, Hessian stores in {out / 'hessians'}, "
+         f"mode catalogues in {out / 'modes'}")
