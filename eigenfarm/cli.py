@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-from pathlib import Path
 
 from eigenfarm import __version__
 from eigenfarm.errors import ConvergenceError, InputError

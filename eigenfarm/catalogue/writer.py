@@ -7,8 +7,6 @@ once the new one is complete, and anything that is not a catalogue is never repl
 
 from __future__ import annotations
 
-import os
-import shutil
 import warnings
 from pathlib import Path
 
@@ -17,35 +15,16 @@ import zarr
 
 from eigenfarm.catalogue import layout
 from eigenfarm.catalogue.participation import participation_ratio
-from eigenfarm.errors import InputError
-from eigenfarm.store.atomic import PartialStore
+from eigenfarm.store import atomic
 from eigenfarm.store.layout import codecs
 from eigenfarm.store.provenance import jsonable
 from eigenfarm.structure.units import UnitSystem
 
 
 def check_destination(out, overwrite: bool = False) -> None:
-    """Refuse (InputError) an output path the catalogue may not be written to: an existing path unless
-    ``overwrite``, any existing path that is not a catalogue, or a missing parent directory."""
-    out = Path(out)
-    if out.exists() or out.is_symlink():
-        if not overwrite:
-            raise InputError(f"{out}: already exists (pass --overwrite to replace it)")
-        if not layout.is_catalogue(out):
-            raise InputError(f"{out}: exists and is not a mode catalogue; not replacing it")
-    if not out.parent.is_dir():
-        raise InputError(f"{out}: directory {out.parent} does not exist")
-
-
-class PartialCatalogue(PartialStore):
-    """:class:`PartialStore` whose "ours to replace" test is :func:`layout.is_catalogue`."""
-
-    def __init__(self, out, overwrite: bool = False):
-        check_destination(out, overwrite)
-        self.out = Path(out)
-        self.path = self.out.with_name(f".{self.out.name}.partial-{os.getpid()}")
-        if self.path.exists():
-            shutil.rmtree(self.path)
+    """Refuse (InputError) an output path the catalogue may not be written to (see
+    :func:`eigenfarm.store.atomic.check_destination`)."""
+    atomic.check_destination(out, overwrite, layout.is_catalogue, "mode catalogue")
 
 
 def _variable_attrs(units: UnitSystem) -> dict:
@@ -67,7 +46,7 @@ class CatalogueWriter:
 
     def __init__(self, out, n_atoms: int, units: UnitSystem, *, overwrite: bool = False,
                  chunk_bytes: int = layout.CHUNK_BYTES):
-        self.partial = PartialCatalogue(out, overwrite)
+        self.partial = atomic.PartialStore(out, overwrite, layout.is_catalogue, "mode catalogue")
         self.units = units
         self.n_dof = 3 * int(n_atoms)
         self.chunks = layout.vector_chunks(self.n_dof, chunk_bytes)
@@ -159,7 +138,7 @@ class CatalogueWriter:
 
     def abort(self) -> None:
         """Delete the partial directory."""
-        shutil.rmtree(self.partial.path, ignore_errors=True)
+        self.partial.abort()
 
     def __enter__(self):
         return self

@@ -25,7 +25,7 @@ def default_workers() -> int:
 
 @contextlib.contextmanager
 def open_client(workers: int | None = None, scheduler: str | None = None,
-                memory_limit: str = "auto", quiet: bool = True) -> Iterator["distributed.Client"]:
+                memory_limit: str = "auto", quiet: bool = True) -> Iterator:
     """Yield a ``distributed.Client``.
 
     ``scheduler``: address of a running scheduler (e.g. ``tcp://10.0.0.5:8786``); otherwise a

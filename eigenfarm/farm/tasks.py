@@ -9,7 +9,6 @@ from __future__ import annotations
 import time
 from collections import OrderedDict
 
-import numpy as np
 
 from eigenfarm.plan.slicing import Slice
 from eigenfarm.solve.backend import SingularShift

@@ -36,31 +36,37 @@ def check_live(path) -> None:
         raise StoreAborted(f"{path}: store abandoned")
 
 
+def check_destination(out, overwrite: bool, is_ours=None, label: str = "Hessian store") -> None:
+    """Refuse (InputError) an output path we may not write: an existing one unless ``overwrite``, an
+    existing one that ``is_ours`` (default :func:`is_store`) does not recognise as a ``label`` (it would
+    not be ours to delete), or one whose parent directory is missing."""
+    out = Path(out)
+    if out.exists() or out.is_symlink():
+        if not overwrite:
+            raise InputError(f"{out}: already exists (pass --overwrite to replace it)")
+        if not (is_ours or is_store)(out):
+            raise InputError(f"{out}: exists and is not a {label}; not replacing it")
+    if not out.parent.is_dir():
+        raise InputError(f"{out}: directory {out.parent} does not exist")
+
+
 class PartialStore:
-    """The hidden directory a new store at ``out`` is written to.
+    """The hidden directory a new store (or other ``label`` directory recognised by ``is_ours``) at
+    ``out`` is written to; :func:`check_destination` runs first."""
 
-    Refuses at once an existing ``out`` unless ``overwrite``, and any existing ``out`` that is not a
-    Hessian store (it would not be ours to delete).
-    """
-
-    def __init__(self, out, overwrite: bool = False):
+    def __init__(self, out, overwrite: bool = False, is_ours=None, label: str = "Hessian store"):
+        check_destination(out, overwrite, is_ours, label)
         self.out = Path(out)
-        if self.out.exists() or self.out.is_symlink():
-            if not overwrite:
-                raise InputError(f"{self.out}: already exists (pass overwrite to replace it)")
-            if not is_store(self.out):
-                raise InputError(f"{self.out}: exists and is not a Hessian store; not replacing it")
-        if not self.out.parent.is_dir():
-            raise InputError(f"{self.out}: directory {self.out.parent} does not exist")
         self.path = self.out.with_name(f".{self.out.name}.partial-{os.getpid()}")
         if self.path.exists():
             shutil.rmtree(self.path)
 
-    def abort(self, runner) -> None:
-        """Flag the partial store abandoned, wait for running tasks, delete it."""
+    def abort(self, runner=None) -> None:
+        """Flag the partial directory abandoned, wait for ``runner``'s running tasks, delete it."""
         if self.path.is_dir():
             (self.path / ABORT_FLAG).touch()
-        runner.settle()
+        if runner is not None:
+            runner.settle()
         shutil.rmtree(self.path, ignore_errors=True)
 
     def commit(self) -> Path:
