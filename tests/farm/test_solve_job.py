@@ -9,7 +9,6 @@ import time
 
 import numpy as np
 import pytest
-from lattices import fcc_crystal
 
 from eigenfarm.catalogue import open_catalogue
 from eigenfarm.catalogue.parts import work_path

@@ -29,7 +29,6 @@ def brute_force(positions, box: Box, cutoff: float):
     reach = [int(np.ceil(cutoff / w + s)) + 1 if p else 0 for w, s, p in zip(box.widths, spread, box.pbc)]
     shifts = np.array(list(itertools.product(*(range(-r, r + 1) for r in reach))), dtype=float)
     out = {}
-    n = len(positions)
     base = positions[None, :, :] - positions[:, None, :]  # (i, j, 3) = x_j − x_i
     for t in shifts:
         d = base + t @ box.cell
