@@ -142,3 +142,19 @@ def test_bad_requests_are_clear_errors(glass, tmp_path):
         solve(path, tmp_path / "b.zarr", window=(0.0, 1e-9))
     with pytest.raises(InputError, match="only 597 modes above the zero band"):
         solve(path, tmp_path / "c.zarr", lowest=598)
+
+
+def test_a_store_that_failed_validation_is_refused(glass, tmp_path):
+    import shutil
+
+    from eigenfarm.store import layout
+
+    path, _ = glass
+    broken = tmp_path / "broken.zarr"
+    shutil.copytree(path, broken)
+    verdict = layout.read_attrs(broken)["validation"]
+    verdict["passed"] = False
+    verdict["checks"]["symmetry"]["passed"] = False
+    layout.update_attrs(broken, {"validation": verdict})
+    with pytest.raises(InputError, match=r"failed validation \(symmetry\)"):
+        solve(broken, tmp_path / "m.zarr", lowest=5)
