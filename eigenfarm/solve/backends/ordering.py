@@ -1,7 +1,7 @@
 """Fill-reducing orderings computed outside the factorisation library.
 
 :func:`nested_dissection` is METIS's multilevel nested dissection (Karypis & Kumar, SIAM J. Sci.
-Comput. 20, 359, 1998) through pymetis, an optional dependency (``pip install "eigenfarm[metis]"``, a
+Comput. 20, 359, 1998) through pymetis, a dependency of eigenfarm (``pip install pymetis`` if it is missing: a
 self-contained wheel).  On a 13,500-atom 3D Hessian it gives SuperLU 3.3× less fill than its own
 minimum-degree ordering and a 9× faster factorisation (benchmarks/factorisation_choices.py).
 """

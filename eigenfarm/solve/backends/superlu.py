@@ -107,7 +107,7 @@ class SuperLUBackend(Backend):
         if ordering not in ORDERINGS:
             raise InputError(f"superlu backend: unknown ordering {ordering!r}: choose one of {', '.join(ORDERINGS)}")
         if ordering == "METIS" and not metis_available():
-            raise InputError("superlu backend: ordering 'METIS' needs pymetis: pip install 'eigenfarm[metis]'")
+            raise InputError("superlu backend: ordering 'METIS' needs pymetis: pip install pymetis")
         self.ordering, self.zero_tol = ordering, float(zero_tol)
         self.max_backward_error, self.retry_shift = float(max_backward_error), float(retry_shift)
         self.dense_fallback_max_n = int(dense_fallback_max_n)
