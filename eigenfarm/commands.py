@@ -36,8 +36,7 @@ def run_glass(args) -> list[Path]:
     with _client(args) as client:
         _announce(client)
         paths = make_ensemble(recipe, args.seed, args.samples, args.out, client, args.overwrite, ProgressBar())
-    for path in paths:
-        _say(f"wrote {path}")
+    _say(f"{len(paths)} samples in {args.out}: " + ", ".join(p.name for p in paths))
     return paths
 
 

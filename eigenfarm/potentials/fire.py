@@ -97,5 +97,5 @@ def fire_minimise(potential: Potential, config: Configuration, fmax: float = 1e-
         energy, f = forces_at(x)
     raise ConvergenceError(
         f"FIRE did not converge in {max_steps} steps: max |F| = {worst:.3g} > {fmax:g} "
-        f"({config.source}); raise max_steps or loosen fmax"
+        f"({config.source}); allow more steps (--max-steps) or a looser tolerance (--fmax)"
     )
