@@ -18,7 +18,7 @@ from eigenfarm.catalogue import WorkFolder, write_catalogue
 from eigenfarm.errors import InputError
 from eigenfarm.farm import tasks
 from eigenfarm.farm.runner import Runner
-from eigenfarm.plan.slicing import Plan, plan_lowest, plan_window
+from eigenfarm.plan.slicing import Plan, Slice, plan_lowest, plan_window
 from eigenfarm.solve.dynamical import trivial_zero_modes
 from eigenfarm.solve.slicer import LanczosSettings
 from eigenfarm.store import open_store
@@ -68,13 +68,34 @@ def _counter(runner: Runner, store: str, backend: str):
     return count
 
 
-def _plan(runner: Runner, store: str, request: SolveRequest, units, n: int) -> Plan:
+#: --lowest K up to this many modes is first tried in one Lanczos pass from below the spectrum
+#: (memory ~ 2K vectors of 3N doubles); larger K, or a failed completeness proof, slices the window
+ONE_PASS_MAX = 200
+
+
+def _plan(runner: Runner, store: str, request: SolveRequest, units, n: int, work: WorkFolder) -> Plan:
     scale = runner.gather([runner.submit(tasks.scale_task, store)])[0]
+    if request.lowest is not None and request.lowest <= ONE_PASS_MAX:
+        plan = _one_pass(runner, store, request, scale, work)
+        if plan is not None:
+            return plan
     count = _counter(runner, store, request.backend)
     if request.lowest is not None:
         return plan_lowest(count, scale, request.lowest, request.slice_modes, request.zero_tol, n)
     lo, hi = (float(units.eigenvalue(f)) for f in request.window)
     return plan_window(count, scale, lo, hi, request.slice_modes, request.zero_tol)
+
+
+def _one_pass(runner: Runner, store: str, request: SolveRequest, scale: float, work: WorkFolder) -> Plan | None:
+    """The lowest K in one task (tasks.lowest_task); its modes are saved as slice 0 of the plan returned."""
+    found = runner.gather([runner.submit(tasks.lowest_task, store, request.backend, request.lowest, scale,
+                                         request.zero_tol, request.lanczos, work.save_part)])[0]
+    if found is None:
+        return None
+    tau = request.zero_tol * scale
+    piece = Slice(0, tau, found["check"], found["count"] - found["n_zero"])
+    return Plan(tau, found["check"], [piece], scale, request.zero_tol, 0, found["n_zero"], found["n_zero"],
+                {"lowest": request.lowest, "one_pass": True}, keep=request.lowest)
 
 
 def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: bool,
@@ -89,7 +110,7 @@ def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: b
     work = WorkFolder(out, fingerprint)
     plan = work.plan
     if plan is None:
-        plan = _plan(runner, str(store), request, handle.units, 3 * handle.n_atoms)
+        plan = _plan(runner, str(store), request, handle.units, 3 * handle.n_atoms, work)
         work.save_plan(plan)
     info = {"units": handle.units.name, "hessian_digest": handle.digest, "n_atoms": handle.n_atoms,
             "trivial_zero_modes": trivial_zero_modes(None if handle.box is None else handle.box.pbc),

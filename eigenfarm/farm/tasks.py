@@ -14,7 +14,7 @@ from eigenfarm.plan.slicing import Slice
 from eigenfarm.solve.backend import SingularShift
 from eigenfarm.solve.backends import get_backend
 from eigenfarm.solve.dynamical import largest_eigenvalue, load_dynamical, to_input_order
-from eigenfarm.solve.slicer import LanczosSettings, solve_slice
+from eigenfarm.solve.slicer import LanczosSettings, SliceResult, solve_lowest, solve_slice
 
 _OPEN: OrderedDict = OrderedDict()
 _OPEN_LIMIT = 2
@@ -49,14 +49,34 @@ def scale_task(path: str) -> float:
     return largest_eigenvalue(opened(path)[0])
 
 
-def slice_task(path: str, backend: str, piece: Slice, scale: float, settings: LanczosSettings, save) -> dict:
-    """Solve one slice and hand it to ``save(index, values, vectors, residuals, info)`` (vectors in input
-    atom order); returns the slice's record."""
-    started = time.perf_counter()
-    D, original, _ = opened(path)
-    result = solve_slice(D, get_backend(backend), piece.lo, piece.hi, piece.expected, scale, settings)
+def _save(save, path: str, piece: Slice, result: SliceResult, started: float) -> dict:
+    """Hand a slice's eigenpairs to ``save`` (vectors in input atom order); returns the slice record."""
+    original = opened(path)[1]
     info = {"index": piece.index, "lo": piece.lo, "hi": piece.hi, "expected": piece.expected,
             "found": int(len(result.values)), "seconds": time.perf_counter() - started,
             "max_residual": float(result.residuals.max()) if len(result.values) else 0.0, **result.stats}
     save(piece.index, result.values, to_input_order(result.vectors, original), result.residuals, info)
     return info
+
+
+def slice_task(path: str, backend: str, piece: Slice, scale: float, settings: LanczosSettings, save) -> dict:
+    """Solve one slice and hand it to ``save(index, values, vectors, residuals, info)``; returns its record."""
+    started = time.perf_counter()
+    D = opened(path)[0]
+    result = solve_slice(D, get_backend(backend), piece.lo, piece.hi, piece.expected, scale, settings)
+    return _save(save, path, piece, result, started)
+
+
+def lowest_task(path: str, backend: str, k: int, scale: float, zero_tol: float, settings: LanczosSettings,
+                save) -> dict | None:
+    """The k lowest modes in one pass, proved complete by one count (:func:`solve_lowest`), saved as
+    slice 0 of (τ, σ_c]; returns {"check", "count", "n_zero", record} or None when the proof fails."""
+    started = time.perf_counter()
+    D = opened(path)[0]
+    found = solve_lowest(D, get_backend(backend), k, scale, zero_tol, settings)
+    if found is None:
+        return None
+    tau = zero_tol * scale
+    piece = Slice(0, tau, found.check, found.count - found.n_zero)
+    return {"check": found.check, "count": found.count, "n_zero": found.n_zero,
+            "record": _save(save, path, piece, found.modes, started)}

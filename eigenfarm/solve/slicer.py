@@ -61,16 +61,46 @@ def _factor_near(backend: Backend, D, lo: float, hi: float):
 
 def _deflated_operator(factor, basis: np.ndarray | None) -> sla.LinearOperator:
     """(I − VVᵀ)(D − σI)⁻¹(I − VVᵀ) with V the found vectors (n, f), as a LinearOperator."""
-    n = factor.n
-
-    def project(x):
-        return x if basis is None else x - basis @ (basis.T @ x)
-
-    return sla.LinearOperator((n, n), matvec=lambda x: project(factor.solve(project(x))), dtype=float)
+    solve = factor.solve if basis is None else _Deflated(factor, basis).solve
+    return sla.LinearOperator((factor.n, factor.n), matvec=solve, dtype=float)
 
 
 def _in_slice(values, lo, hi, margin):
     return (values > lo - margin) & (values <= hi + margin)
+
+
+def _accumulate(D, factor, keep, missing, settings: LanczosSettings):
+    """Deflated Lanczos runs on (D − σI)⁻¹ until ``missing(values)`` is 0 or the restarts run out.
+
+    ``keep(λ)`` → bool mask of the Ritz values worth keeping; ``missing(values)`` → how many more are
+    needed.  Returns (values (m,), orthonormal vectors (n, m), Lanczos runs)."""
+    n = D.shape[0]
+    rng = np.random.default_rng(settings.seed)
+    values, vectors, runs = np.zeros(0), np.zeros((n, 0)), 0
+    while missing(values) > 0 and runs <= settings.max_restarts:
+        k = min(missing(values) + settings.extra, n - 1 - vectors.shape[1])
+        ncv = min(n, max(settings.ncv or max(2 * k + 1, 20), k + 1))
+        op = _deflated_operator(factor, vectors if vectors.shape[1] else None)
+        v0 = rng.standard_normal(n)
+        if vectors.shape[1]:
+            v0 -= vectors @ (vectors.T @ v0)
+        theta, ritz = _lanczos(op, k, ncv, settings.tol, v0)
+        runs += 1
+        live = np.abs(theta) > 1e-300
+        lam, ritz = factor.sigma + 1.0 / theta[live], ritz[:, live]
+        wanted = keep(lam)
+        lam, ritz = lam[wanted], ritz[:, wanted]
+        if vectors.shape[1]:  # re-orthogonalise against what we have (deflation is exact only in theory)
+            ritz -= vectors @ (vectors.T @ ritz)
+        ritz, lam = _orthonormal_ritz(D, ritz, lam)
+        values, vectors = np.concatenate([values, lam]), np.hstack([vectors, ritz])
+    order = np.argsort(values)
+    return values[order], vectors[:, order], runs
+
+
+def _result(D, values, vectors, scale, stats) -> SliceResult:
+    residuals = np.linalg.norm(D @ vectors - vectors * values, axis=0) / scale
+    return SliceResult(values, vectors, residuals, stats)
 
 
 def solve_slice(D: sp.spmatrix, backend: Backend, lo: float, hi: float, expected: int, scale: float,
@@ -85,34 +115,94 @@ def solve_slice(D: sp.spmatrix, backend: Backend, lo: float, hi: float, expected
         return SliceResult(np.zeros(0), np.zeros((n, 0)), np.zeros(0), {"shift": None, "runs": 0})
     factor = _factor_near(backend, D, lo, hi)
     margin = 1e-10 * scale
-    rng = np.random.default_rng(settings.seed)
-    values, vectors, runs = np.zeros(0), np.zeros((n, 0)), 0
-    while len(values) < expected and runs <= settings.max_restarts:
-        missing = expected - len(values)
-        k = min(missing + settings.extra, n - 1 - vectors.shape[1])
-        ncv = min(n, max(settings.ncv or max(2 * k + 1, 20), k + 1))
-        op = _deflated_operator(factor, vectors if vectors.shape[1] else None)
-        v0 = rng.standard_normal(n)
-        if vectors.shape[1]:
-            v0 -= vectors @ (vectors.T @ v0)
-        theta, ritz = _lanczos(op, k, ncv, settings.tol, v0)
-        runs += 1
-        keep = np.abs(theta) > 1e-300
-        lam = factor.sigma + 1.0 / theta[keep]
-        ritz = ritz[:, keep]
-        inside = _in_slice(lam, lo, hi, margin)
-        lam, ritz = lam[inside], ritz[:, inside]
-        if vectors.shape[1]:  # re-orthogonalise against what we have (deflation is exact only in theory)
-            ritz -= vectors @ (vectors.T @ ritz)
-        ritz, lam = _orthonormal_ritz(D, ritz, lam)
-        values, vectors = np.concatenate([values, lam]), np.hstack([vectors, ritz])
+    values, vectors, runs = _accumulate(D, factor, lambda lam: _in_slice(lam, lo, hi, margin),
+                                        lambda found: expected - len(found), settings)
     if len(values) < expected:
         raise IncompleteSlice(f"slice ({lo:.6g}, {hi:.6g}]: found {len(values)} of {expected} eigenpairs "
                               f"after {runs} Lanczos runs")
     values, vectors = _best(values, vectors, expected, lo, hi, factor.sigma)
-    residuals = np.linalg.norm(D @ vectors - vectors * values, axis=0) / scale
     stats = {"shift": factor.sigma, "runs": runs, **{f"factor_{k}": v for k, v in factor.stats.items()}}
-    return SliceResult(values, vectors, residuals, stats)
+    return _result(D, values, vectors, scale, stats)
+
+
+@dataclass
+class LowestResult:
+    """The lowest modes found from one shift below the spectrum and proved complete by one count:
+    ``modes`` (the kept eigenpairs above the zero band), ``check`` the shift σ_c above them with
+    ``count`` = N(σ_c) eigenvalues below it, ``n_zero`` zero modes found (|λ| ≤ τ)."""
+
+    modes: SliceResult
+    check: float
+    count: int
+    n_zero: int
+
+
+def solve_lowest(D: sp.spmatrix, backend: Backend, k: int, scale: float, zero_tol: float,
+                 settings: LanczosSettings = LanczosSettings()) -> LowestResult | None:
+    """The k lowest modes above the zero band |λ| ≤ τ = zero_tol·scale, in one Lanczos pass.
+
+    D − σI is factored at σ = −100τ, below the spectrum of a stable configuration (positive definite,
+    so CHOLMOD can do it); shift-invert Lanczos then finds the eigenvalues from the bottom up.  The
+    result is *proved* complete by one inertia count at σ_c, halfway between the last kept mode and the
+    next: N(σ_c) must equal the number found below σ_c.  Returns None when that proof fails or the
+    factorisation shows negative eigenvalues; the caller then slices the window instead.
+    """
+    tau = zero_tol * scale
+    factor = backend.factor(D, -100 * tau)
+    inertia = factor.inertia()
+    if inertia is None or inertia.below:
+        return None
+    level = 1e-9 * scale
+
+    def missing(values):  # k modes above the zero band, the rest of the k-th level, and one beyond it
+        physical = values[values > tau]
+        if len(physical) < k:
+            return k + 1 - len(physical)
+        return 0 if (physical > physical[k - 1] + level).any() else 1
+
+    everything = lambda lam: np.ones(len(lam), bool)  # noqa: E731 (from below, all Ritz values are wanted)
+    values, vectors, runs = _accumulate(D, factor, everything, missing, settings)
+    for _ in range(settings.max_restarts):
+        if missing(values):
+            return None
+        physical = values > tau
+        above = values[physical]
+        keep = int((above <= above[k - 1] + level).sum())
+        check = 0.5 * (above[keep - 1] + above[keep])
+        count = backend.count_below(D, check)
+        n_zero = int((np.abs(values) <= tau).sum())
+        short = count - (n_zero + keep)
+        if short <= 0:
+            break
+        # Lanczos missed members of a (degenerate) level below σ_c: deflate what we have, find the rest
+        more, extra, more_runs = _accumulate(D, _Deflated(factor, vectors), everything,
+                                             lambda found: short - len(found), settings)
+        values, vectors, runs = _merge_sorted(values, vectors, more, extra, runs + more_runs)
+    if short != 0:
+        return None
+    chosen = np.flatnonzero(physical)[:keep]
+    stats = {"shift": factor.sigma, "runs": runs, "check_shift": check, "check_count": count,
+             **{f"factor_{key}": v for key, v in factor.stats.items()}}
+    return LowestResult(_result(D, values[chosen], vectors[:, chosen], scale, stats), check, count, n_zero)
+
+
+class _Deflated:
+    """A factor whose solves project out fixed orthonormal vectors (n, f) first, so a new Lanczos run
+    cannot find them again."""
+
+    def __init__(self, factor, basis: np.ndarray):
+        self.sigma, self.n, self.factor, self.basis = factor.sigma, factor.n, factor, basis
+
+    def solve(self, b):
+        project = lambda x: x - self.basis @ (self.basis.T @ x)  # noqa: E731
+        return project(self.factor.solve(project(b)))
+
+
+def _merge_sorted(values, vectors, more, extra, runs):
+    """Found pairs plus newly found ones (orthogonal to them), sorted by eigenvalue."""
+    values, vectors = np.concatenate([values, more]), np.hstack([vectors, extra])
+    order = np.argsort(values)
+    return values[order], vectors[:, order], runs
 
 
 def _lanczos(op, k: int, ncv: int, tol: float, v0: np.ndarray):

@@ -158,3 +158,31 @@ def test_a_store_that_failed_validation_is_refused(glass, tmp_path):
     layout.update_attrs(broken, {"validation": verdict})
     with pytest.raises(InputError, match=r"failed validation \(symmetry\)"):
         solve(broken, tmp_path / "m.zarr", lowest=5)
+
+
+def test_lowest_k_one_pass_and_sliced_paths_agree_and_complete_degenerate_levels(tmp_path, monkeypatch):
+    # FCC spring crystal, 4³ cells: the 30 lowest non-trivial modes end inside the 16-fold second level
+    # (levels 24, 16, 18 from Ashcroft & Mermin eq. 22.58 on the box's wavevectors), so 40 are kept.
+    config, potential = fcc_crystal(4)
+    build_store(config, potential, tmp_path / "H.zarr")
+    ref = bravais_eigenvalues(fcc_allowed_q(4), fcc_neighbours())[3:43]
+    one_pass = solve(tmp_path / "H.zarr", tmp_path / "a.zarr", lowest=30, backend="superlu")
+    assert one_pass.attrs["request"].get("one_pass") and len(one_pass.attrs["slices"]) == 1
+    monkeypatch.setattr(solvejob, "ONE_PASS_MAX", 0)
+    sliced = solve(tmp_path / "H.zarr", tmp_path / "b.zarr", lowest=30, backend="superlu", slice_modes=10)
+    assert not sliced.attrs["request"].get("one_pass")
+    for cat in (one_pass, sliced):
+        assert cat.complete and cat.n_modes == 40
+        np.testing.assert_allclose(cat.eigenvalues, ref, rtol=1e-10)
+
+
+def test_lowest_k_falls_back_to_slicing_when_there_are_negative_modes(tmp_path):
+    potential = demo_potential()
+    rough = fire_minimise(potential, random_fill(Recipe(120), np.random.default_rng(4)), fmax=0.5).config
+    build_store(rough, potential, tmp_path / "H.zarr")
+    w = np.linalg.eigvalsh(dynamical_matrix(potential.hessian(rough), rough.masses).toarray())
+    tau = 1e-8 * w.max()
+    cat = solve(tmp_path / "H.zarr", tmp_path / "m.zarr", lowest=10)
+    assert not cat.attrs["request"].get("one_pass")
+    assert cat.attrs["negative_modes"]["count"] == int((w < -tau).sum()) > 0
+    np.testing.assert_allclose(cat.eigenvalues, w[w > tau][:10], rtol=1e-9)
