@@ -115,23 +115,29 @@ def test_simple_cubic_floppy_planes_are_reported_not_a_crash(tmp_path):
     np.testing.assert_allclose(cat.eigenvalues, ref, rtol=1e-10)
 
 
-def test_negative_eigenvalues_are_counted_and_strict_refuses(tmp_path):
-    # A configuration away from its minimum (a random fill only roughly relaxed) has negative
-    # eigenvalues; the reference count is dense LAPACK (numpy.linalg.eigvalsh) on the same matrix.
+@pytest.fixture(scope="module")
+def rough(tmp_path_factory):
+    """A configuration away from its minimum (a random fill only roughly relaxed): its store and the
+    eigenvalues of its D by dense LAPACK (numpy.linalg.eigvalsh), the reference for its negative modes."""
     potential = demo_potential()
-    rough = fire_minimise(potential, random_fill(Recipe(120), np.random.default_rng(4)), fmax=0.5).config
-    build_store(rough, potential, tmp_path / "H.zarr")
-    w = np.linalg.eigvalsh(dynamical_matrix(potential.hessian(rough), rough.masses).toarray())
+    config = fire_minimise(potential, random_fill(Recipe(120), np.random.default_rng(4)), fmax=0.5).config
+    path = tmp_path_factory.mktemp("rough") / "H.zarr"
+    build_store(config, potential, path)
+    return path, np.linalg.eigvalsh(dynamical_matrix(potential.hessian(config), config.masses).toarray())
+
+
+def test_negative_eigenvalues_are_counted_and_strict_refuses(rough, tmp_path):
+    path, w = rough
     negative = int((w < -1e-8 * w.max()).sum())
     assert negative > 0
     notices = []
-    cat = solve(tmp_path / "H.zarr", tmp_path / "m.zarr", notices, window=(-50.0, 2.0))
+    cat = solve(path, tmp_path / "m.zarr", notices, window=(-50.0, 2.0))
     assert cat.attrs["negative_modes"]["count"] == negative
     np.testing.assert_allclose(cat.eigenvalues[:negative], w[:negative], rtol=1e-9)
     assert (cat.frequencies[:negative] < 0).all()
     assert any("NEGATIVE" in text for text in notices)
     with pytest.raises(InputError, match="NEGATIVE"):
-        solve(tmp_path / "H.zarr", tmp_path / "strict.zarr", window=(-50.0, 2.0), strict=True)
+        solve(path, tmp_path / "strict.zarr", window=(-50.0, 2.0), strict=True)
 
 
 def test_bad_requests_are_clear_errors(glass, tmp_path):
@@ -176,13 +182,10 @@ def test_lowest_k_one_pass_and_sliced_paths_agree_and_complete_degenerate_levels
         np.testing.assert_allclose(cat.eigenvalues, ref, rtol=1e-10)
 
 
-def test_lowest_k_falls_back_to_slicing_when_there_are_negative_modes(tmp_path):
-    potential = demo_potential()
-    rough = fire_minimise(potential, random_fill(Recipe(120), np.random.default_rng(4)), fmax=0.5).config
-    build_store(rough, potential, tmp_path / "H.zarr")
-    w = np.linalg.eigvalsh(dynamical_matrix(potential.hessian(rough), rough.masses).toarray())
+def test_lowest_k_falls_back_to_slicing_when_there_are_negative_modes(rough, tmp_path):
+    path, w = rough
     tau = 1e-8 * w.max()
-    cat = solve(tmp_path / "H.zarr", tmp_path / "m.zarr", lowest=10)
+    cat = solve(path, tmp_path / "m.zarr", lowest=10)
     assert not cat.attrs["request"].get("one_pass")
     assert cat.attrs["negative_modes"]["count"] == int((w < -tau).sum()) > 0
     np.testing.assert_allclose(cat.eigenvalues, w[w > tau][:10], rtol=1e-9)
