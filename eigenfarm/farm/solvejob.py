@@ -15,6 +15,7 @@ from typing import Callable
 
 from eigenfarm import __version__
 from eigenfarm.catalogue import WorkFolder, write_catalogue
+from eigenfarm.catalogue.writer import check_destination
 from eigenfarm.errors import InputError
 from eigenfarm.farm import tasks
 from eigenfarm.farm.runner import Runner
@@ -104,8 +105,7 @@ def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: b
     handle = open_store(store)
     _refuse_invalid(store, handle.validation)
     out = Path(out)
-    if out.exists() and not overwrite:
-        raise InputError(f"{out}: already exists (pass --overwrite to replace it)")
+    check_destination(out, overwrite)  # refuse now, not after hours of solving
     fingerprint = {"hessian_digest": handle.digest, "request": request.settings(), "eigenfarm": __version__}
     work = WorkFolder(out, fingerprint)
     plan = work.plan

@@ -59,9 +59,7 @@ class Plan:
         return sum(s.expected for s in self.slices)
 
     def to_dict(self) -> dict:
-        out = asdict(self)
-        out["slices"] = [asdict(s) for s in self.slices]
-        return out
+        return asdict(self)  # recurses into the slices
 
 
 @dataclass(frozen=True)
