@@ -37,6 +37,8 @@ import tempfile
 import time
 from pathlib import Path
 
+from result_files import RESULTS, write_results
+
 import numpy as np
 import scipy.sparse as sp
 
@@ -46,7 +48,6 @@ INTERIOR_FRACTION = 0.1
 N_MODES = 100
 #: seconds allowed for SuperLU's NATURAL ordering (lattice order: a wide band, the slowest case)
 NATURAL_TIMEOUT = 240.0
-RESULTS = Path(__file__).resolve().parent / "results"
 ONE_THREAD = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 
 
@@ -413,10 +414,7 @@ def main(argv=None) -> int:
     started = time.perf_counter()
     report = measure(args.cells, args.timeout, args.only)
     report["total_seconds"] = time.perf_counter() - started
-    RESULTS.mkdir(exist_ok=True)
-    (RESULTS / "factorisation_choices.json").write_text(json.dumps(report, indent=1, default=float))
-    (RESULTS / "factorisation_choices.md").write_text(markdown(report))
-    print(markdown(report))
+    write_results("factorisation_choices", report, markdown(report))
     return 0
 
 

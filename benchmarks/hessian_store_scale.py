@@ -33,10 +33,11 @@ import threading
 import time
 from pathlib import Path
 
+from result_files import write_results
+
 import numpy as np
 
 DENSITY, JITTER, RC = 1.2, 0.06, 1.3
-RESULTS = Path(__file__).resolve().parent / "results"
 
 
 def make_sample(n_atoms: int, seed: int = 7):
@@ -207,11 +208,7 @@ def main(argv=None):
     finally:
         if own_scratch:
             shutil.rmtree(args.scratch, ignore_errors=True)
-    RESULTS.mkdir(exist_ok=True)
-    stem = RESULTS / f"hessian_store_scale-{args.atoms}"
-    stem.with_suffix(".json").write_text(json.dumps(result, indent=2) + "\n")
-    stem.with_suffix(".md").write_text(markdown(result))
-    print(markdown(result))
+    write_results(f"hessian_store_scale-{args.atoms}", result, markdown(result))
 
 
 if __name__ == "__main__":

@@ -34,8 +34,9 @@ import tempfile
 import time
 from pathlib import Path
 
+from result_files import write_results
+
 HERE = Path(__file__).resolve().parent
-RESULTS = HERE / "results"
 ONE_THREAD = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 K = 100
 
@@ -184,10 +185,7 @@ def main(argv=None) -> int:
                          "many slices: farm-1 / farm-2": ratio(sec["many slices farm-1"], sec["many slices farm-2"])},
               "targets": {"plain / best eigenfarm": "≥ 15", "farm-1 / inline": "≤ 1.10",
                           "many slices: farm-1 / farm-2": "≥ 1.7"}}
-    RESULTS.mkdir(exist_ok=True)
-    (RESULTS / "solve_farm.json").write_text(json.dumps(report, indent=2, default=str))
-    (RESULTS / "solve_farm.md").write_text(markdown(report))
-    print(markdown(report))
+    write_results("solve_farm", report, markdown(report))
     return 0
 
 
