@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from eigenfarm.catalogue.geometry import Geometry
 from eigenfarm.catalogue.parts import WorkFolder
 from eigenfarm.catalogue.stitch import Stitcher
 from eigenfarm.catalogue.verdict import catalogue_attributes
@@ -71,12 +72,13 @@ def _check_plan(plan: Plan, work: WorkFolder) -> None:
                          "command to finish them")
 
 
-def write_catalogue(out, work: WorkFolder, plan: Plan, info: dict, *, overwrite: bool = False,
-                    cluster_tol: float = CLUSTER_TOL, progress=None) -> Path:
+def write_catalogue(out, work: WorkFolder, plan: Plan, info: dict, *, geometry: Geometry | None = None,
+                    overwrite: bool = False, cluster_tol: float = CLUSTER_TOL, progress=None) -> Path:
     """Merge the finished slices of ``plan`` in ``work`` into a catalogue at ``out``; returns its path.
 
     ``info``: ``units`` (name), ``hessian_digest``, ``n_atoms``, and optionally ``trivial_zero_modes``,
-    ``store`` and ``solver`` (JSON-ready settings), recorded as attributes.  ``overwrite`` replaces an
+    ``store`` and ``solver`` (JSON-ready settings), recorded as attributes.  ``geometry``: the sample's
+    masses, positions and cell in input atom order, copied into the catalogue.  ``overwrite`` replaces an
     existing catalogue (only once the new one is complete).  ``cluster_tol``: eigenvalue tolerance
     relative to ``plan.scale`` for treating modes of neighbouring slices as one level.
     ``progress(stage, done, total)`` is called as parts are merged.  InputError when a slice is not
@@ -99,6 +101,6 @@ def write_catalogue(out, work: WorkFolder, plan: Plan, info: dict, *, overwrite:
         stitcher.close()
         attrs = catalogue_attributes(plan, info, units, sink.all_eigenvalues(), sink.written,
                                      stitcher.records, runs, tol, stitcher.recombined)
-        path = writer.finish(attrs)
+        path = writer.finish(attrs, geometry)
     work.remove()
     return path

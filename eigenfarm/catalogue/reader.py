@@ -14,7 +14,10 @@ import numpy as np
 import zarr
 
 from eigenfarm.catalogue import layout
+from eigenfarm.catalogue.geometry import Geometry, read_geometry
 from eigenfarm.errors import InputError
+from eigenfarm.store import open_store
+from eigenfarm.store.atomic import is_store
 from eigenfarm.structure.units import UnitSystem, get_units
 
 
@@ -66,7 +69,10 @@ class Catalogue:
 
     @functools.cached_property
     def participation(self) -> np.ndarray:
-        """(M,) participation ratios, 1/N (one atom) … 1 (all atoms alike)."""
+        """(M,) participation ratios, 1/N (one atom) … 1 (all atoms alike); NaN where the catalogue has
+        none (``eigenfarm analyze`` computes and stores them)."""
+        if "participation" not in self.group:
+            return np.full(self.n_modes, np.nan)
         return self._mode_array("participation")
 
     @functools.cached_property
@@ -100,6 +106,20 @@ class Catalogue:
             stop = min(start + step, self.n_modes)
             yield slice(start, stop), self.read_vectors(start, stop)
 
+    @functools.cached_property
+    def geometry(self) -> Geometry | None:
+        """Masses, positions and cell of the sample in input atom order: from the catalogue, or else from
+        the Hessian store it records when that store still exists with the same digest; None otherwise."""
+        stored = read_geometry(self.group, self.attrs)
+        if stored is not None:
+            return stored
+        path = self.attrs.get("store")
+        if path and is_store(path):
+            store = open_store(path)
+            if store.digest == self.attrs.get("hessian_digest"):
+                return Geometry.from_store(store)
+        return None
+
     def summary(self) -> str:
         """Readable text for the command line (see :mod:`eigenfarm.catalogue.summary`)."""
         from eigenfarm.catalogue.summary import format_summary
@@ -107,7 +127,8 @@ class Catalogue:
         return format_summary(self)
 
 
-_REQUIRED = (layout.VECTOR, "mode", *layout.PER_MODE)
+#: participation is optional: analyses recompute it from the vectors and store it back
+_REQUIRED = (layout.VECTOR, "mode", *(name for name in layout.PER_MODE if name != "participation"))
 
 
 def open_catalogue(path) -> Catalogue:

@@ -77,7 +77,7 @@ def catalogue_attributes(plan: Plan, info: dict, units: UnitSystem, eigenvalues:
     tau = plan.zero_tol * plan.scale
     return {
         "units": info["units"], "hessian_digest": info["hessian_digest"], "n_atoms": int(info["n_atoms"]),
-        "store": info.get("store"),
+        "store": info.get("store"), "preparation": info.get("preparation"),
         "window": {"eigenvalue": [plan.lo, plan.hi], "frequency": units.frequency([plan.lo, plan.hi]).tolist(),
                    "frequency_unit": units.frequency_unit, "convention": "lo < λ ≤ hi, zero band excluded"},
         "request": plan.request, "keep_lowest": plan.keep,

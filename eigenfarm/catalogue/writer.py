@@ -14,6 +14,7 @@ import numpy as np
 import zarr
 
 from eigenfarm.catalogue import layout
+from eigenfarm.catalogue.geometry import Geometry
 from eigenfarm.catalogue.participation import participation_ratio
 from eigenfarm.store import atomic
 from eigenfarm.store.layout import codecs
@@ -118,9 +119,21 @@ class CatalogueWriter:
         for start in range(0, self.n_dof, step):
             atoms[start:start + step] = np.arange(start, min(start + step, self.n_dof)) // 3
 
-    def finish(self, attrs: dict) -> Path:
-        """Write the remaining vectors, the per-mode variables, the coordinates and ``attrs`` (JSON-ready
-        root attributes), consolidate the metadata and move the catalogue into place; returns its path."""
+    def _put_geometry(self, geometry: Geometry) -> None:
+        """Masses, positions and cell of the sample (see :mod:`eigenfarm.catalogue.geometry`)."""
+        if geometry.n_atoms != self.n_dof // 3:
+            raise ValueError(f"geometry has {geometry.n_atoms} atoms, the catalogue {self.n_dof // 3}")
+        self.group.create_array("mass", data=np.asarray(geometry.masses, np.float64), compressors=codecs(),
+                                dimension_names=("site",), attributes={"units": self.units.mass})
+        if geometry.positions is not None:
+            self.group.create_array("position", data=np.asarray(geometry.positions, np.float64),
+                                    compressors=codecs(), dimension_names=("site", "xyz"),
+                                    attributes={"units": self.units.length})
+
+    def finish(self, attrs: dict, geometry: Geometry | None = None) -> Path:
+        """Write the remaining vectors, the per-mode variables, the coordinates, the sample's ``geometry``
+        (when given) and ``attrs`` (JSON-ready root attributes), consolidate the metadata and move the
+        catalogue into place; returns its path."""
         self._write(final=True)
         lam = self._column("eigenvalue")
         variables = {"eigenvalue": lam, "frequency": self.units.frequency(lam),
@@ -130,6 +143,9 @@ class CatalogueWriter:
         for name, data in variables.items():
             self._put(name, data.astype(layout.PER_MODE[name]), "mode", layout.MODE_CHUNK, described[name])
         self._put_atoms()
+        if geometry is not None:
+            self._put_geometry(geometry)
+            attrs = {**attrs, **geometry.attributes()}
         self.group.attrs.update(jsonable({**attrs, "n_modes": len(lam)}))
         with warnings.catch_warnings():  # v3 consolidated metadata is what xarray.open_zarr reads first
             warnings.filterwarnings("ignore", "Consolidated metadata", category=UserWarning)

@@ -15,6 +15,7 @@ from typing import Callable
 
 from eigenfarm import __version__
 from eigenfarm.catalogue import WorkFolder, write_catalogue
+from eigenfarm.catalogue.geometry import Geometry
 from eigenfarm.catalogue.writer import check_destination
 from eigenfarm.errors import InputError
 from eigenfarm.farm import tasks
@@ -114,7 +115,8 @@ def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: b
         work.save_plan(plan)
     info = {"units": handle.units.name, "hessian_digest": handle.digest, "n_atoms": handle.n_atoms,
             "trivial_zero_modes": trivial_zero_modes(None if handle.box is None else handle.box.pbc),
-            "store": str(Path(store).resolve())}
+            "store": str(Path(store).resolve()),
+            "preparation": handle.provenance.get("source", {}).get("history")}
     _census_notice(plan, info, request, store, notice)
     return StoreJob(str(store), out, plan, work, info)
 
@@ -155,4 +157,5 @@ def run(runner: Runner, jobs: list[StoreJob], request: SolveRequest, overwrite: 
     if handles:
         runner.gather(handles, "slices", progress)
     return [write_catalogue(job.out, job.work, job.plan, {**job.info, "solver": request.settings()},
-                            overwrite=overwrite, progress=progress) for job in jobs]
+                            geometry=Geometry.from_store(open_store(job.store)), overwrite=overwrite,
+                            progress=progress) for job in jobs]

@@ -81,6 +81,9 @@ def _assemble_shard(path: str, config: Configuration, potential: Potential, grid
 def _provenance(config: Configuration, potential: Potential, source_file) -> dict:
     source = {"kind": "configuration", "description": config.source,
               "configuration_sha256": configuration_sha256(config)}
+    history = {k: v for k, v in config.info.items() if k not in ("Lattice", "Properties", "pbc")}
+    if history:  # preparation notes carried by the configuration (e.g. a demo glass's quench record)
+        source["history"] = history
     if source_file is not None:
         source.update(file_record(source_file))
     return {"source": source, "potential": potential.describe(), **stamp()}

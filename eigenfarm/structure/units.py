@@ -43,6 +43,9 @@ class UnitSystem:
     mass: str
     frequency_unit: str
     frequency_factor: float
+    #: unit of sound speeds and the factor from the internal speed √λ/|k| (length·√(energy/mass)/length)
+    speed_unit: str = ""
+    speed_factor: float = 1.0
 
     def frequency(self, eigenvalue):
         """Reported frequency for eigenvalue(s) λ; negative λ gives a negative signed frequency.
@@ -58,8 +61,9 @@ class UnitSystem:
         return np.sign(f) * (f / self.frequency_factor) ** 2
 
 
-METAL = UnitSystem("metal", "eV", "Å", "amu", "THz", _METAL_OMEGA / (2 * math.pi) / 1e12)
-REDUCED = UnitSystem("reduced", "ε", "σ", "m", "√(ε/mσ²)", 1.0)
+METAL = UnitSystem("metal", "eV", "Å", "amu", "THz", _METAL_OMEGA / (2 * math.pi) / 1e12,
+                   "m/s", _METAL_OMEGA * _ANGSTROM)
+REDUCED = UnitSystem("reduced", "ε", "σ", "m", "√(ε/mσ²)", 1.0, "√(ε/m)", 1.0)
 UNIT_SYSTEMS = {u.name: u for u in (METAL, REDUCED)}
 
 
