@@ -1,0 +1,1 @@
+"""Analyses of mode catalogues: density of states, localisation, tail fits, finite-size tables."""
