@@ -4,8 +4,9 @@
 plane waves.  Over all 3N modes the weights of a shell's waves add up to exactly 2m_s (T) and m_s (L)
 (completeness of the eigenbasis), so the summed weight of the modes in a catalogue is the number of
 modes the band holds there, and it equals 2m_s / m_s when the catalogue covers the whole band.  The band
-frequency is that of the weight-averaged eigenvalue, λ̄ = Σ w λ / Σ w; its width is the weighted spread
-of the frequencies.
+frequency is that of the weight-averaged eigenvalue, λ̄ = Σ w λ / Σ w; its lower edge is the frequency
+below which 10 % of its weight lies and its width half the range between the 16 % and 84 % points (robust
+against the thin high-frequency tail a disordered sample's band weight has).
 
 **Sound speeds** c = √λ̄ / |k| of the first shell's T and L bands (the lowest |k| is closest to the
 continuum limit; dispersion shows in the speeds of later shells, listed in the band table).
@@ -19,8 +20,8 @@ from memory).  In the reported frequency f ∝ ω the same form holds: D(f) = 3f
 - ``phonon``: plane-wave weight W = Σ_shells (T + L) ≥ ``phonon_weight``;
 - ``quasi-localized``: W < ``phonon_weight`` and participation P ≤ ``local_participation``;
 - ``mixed``: everything else below the projected shells;
-- ``beyond-shells``: modes above the highest projected shell's transverse band, where waves of larger
-  |k| — not projected on — may carry them; left unclassified.
+- ``beyond-shells``: modes that are not phonons by W and lie above the highest projected shell's
+  transverse band, where waves of larger |k| — not projected on — may carry them; left unclassified.
 """
 
 from __future__ import annotations
@@ -38,6 +39,8 @@ BEYOND = "beyond-shells"
 CLASSES = (PHONON, LOCAL, MIXED, BEYOND)
 #: a band counts as covered when the catalogues hold this share of its plane-wave weight
 COVERED_SHARE = 0.9
+#: weight fraction defining a band's lower edge
+BAND_EDGE = 0.1
 
 
 @dataclass(frozen=True)
@@ -53,8 +56,8 @@ class Band:
     """One polarisation of one plane-wave shell, over one or more samples of the same cell.
 
     ``k`` 1/length; ``modes``: plane-wave weight found (modes' worth); ``expected``: modes the band holds
-    (2m or m per sample); ``frequency`` (reported unit) of the weight-averaged eigenvalue, ``width``
-    weighted spread of frequencies; ``speed`` √λ̄/|k| in the units' speed unit.
+    (2m or m per sample); ``frequency`` (reported unit) of the weight-averaged eigenvalue; ``low`` the 10 %
+    weight point, ``width`` half the 16–84 % range of frequencies; ``speed`` √λ̄/|k| in the units' speed unit.
     """
 
     shell: int
@@ -65,6 +68,7 @@ class Band:
     expected: float
     modes: float
     frequency: float
+    low: float
     width: float
     speed: float
 
@@ -83,13 +87,23 @@ def _band(tables: list[ModeTable], shell: int, polarisation: str) -> Band:
     freq = np.concatenate([t.frequency for t in tables])
     total = float(weights.sum())
     mean_lam = float(weights @ lam / total) if total > 0 else np.nan
-    mean_f = float(first.units.frequency(mean_lam))
-    width = float(np.sqrt(max(weights @ (freq - mean_f) ** 2 / total, 0.0))) if total > 0 else np.nan
+    low, q16, q84 = weighted_quantiles(freq, weights, [BAND_EDGE, 0.16, 0.84])
     k = float(first.shells.magnitude[shell])
     mult = int(first.shells.multiplicity[shell])
     per_sample = (2 if polarisation == "T" else 1) * mult
     return Band(shell, first.shells.label[shell], polarisation, k, mult, float(per_sample * len(tables)), total,
-                mean_f, width, float(np.sqrt(max(mean_lam, 0.0)) / k * first.units.speed_factor))
+                float(first.units.frequency(mean_lam)), low, 0.5 * (q84 - q16),
+                float(np.sqrt(max(mean_lam, 0.0)) / k * first.units.speed_factor))
+
+
+def weighted_quantiles(values: np.ndarray, weights: np.ndarray, q) -> list[float]:
+    """Values below which fractions ``q`` of the total (non-negative) weight lie; NaN without weight."""
+    order = np.argsort(values, kind="stable")
+    cum = np.cumsum(weights[order])
+    if len(cum) == 0 or cum[-1] <= 0:
+        return [np.nan] * len(q)
+    index = np.searchsorted(cum, np.asarray(q) * cum[-1], side="left")
+    return [float(values[order][min(i, len(cum) - 1)]) for i in index]
 
 
 def identify_bands(tables: list[ModeTable]) -> list[Band]:
@@ -161,5 +175,5 @@ def classify(table: ModeTable, rule: ClassRule, reach: float) -> np.ndarray:
     phonon = has_weights & (weight >= rule.phonon_weight)
     local = ~phonon & (table.participation <= rule.local_participation)
     out = np.where(phonon, PHONON, np.where(local, LOCAL, MIXED)).astype(object)
-    out[table.frequency > reach] = BEYOND
+    out[~phonon & (table.frequency > reach)] = BEYOND
     return out

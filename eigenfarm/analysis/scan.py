@@ -24,6 +24,8 @@ from eigenfarm.structure.units import UnitSystem
 
 #: plane-wave shells projected on by default
 DEFAULT_SHELLS = 8
+#: largest share of all dimensions the projected plane waves may span (see usable_shells)
+WAVE_SHARE = 0.05
 #: most localised modes whose radial profile is kept
 DEFAULT_PROFILES = 6
 
@@ -71,6 +73,16 @@ class ModeTable:
         return None if self.volume is None else self.n_atoms / self.volume
 
 
+def usable_shells(cell, wanted: int, n_dof: int, wave_share: float = WAVE_SHARE) -> Shells:
+    """The first ``wanted`` shells, fewer if needed so that their plane waves (3 per k) stay within
+    ``wave_share`` of the n_dof dimensions — a random unit vector has weight waves/n_dof on them, and that
+    baseline must stay far below the phonon threshold.  At least one shell."""
+    shells = allowed_shells(cell, wanted)
+    waves = 3 * np.cumsum(shells.multiplicity)
+    keep = max(1, int(np.count_nonzero(waves <= wave_share * n_dof)))
+    return shells if keep == shells.n_shells else allowed_shells(cell, keep)
+
+
 def _covered(catalogue) -> tuple[float, float]:
     window = catalogue.attrs.get("window", {}).get("frequency", [0.0, np.inf])
     if catalogue.attrs.get("keep_lowest") is not None:
@@ -95,10 +107,12 @@ def _empty_table(catalogue, geometry: Geometry | None) -> ModeTable:
 
 
 def scan_catalogue(path, *, shells: int = DEFAULT_SHELLS, profiles: int = DEFAULT_PROFILES,
-                   chunk_modes: int | None = None, write_back: bool = True, progress=None) -> ModeTable:
+                   chunk_modes: int | None = None, wave_share: float = WAVE_SHARE, write_back: bool = True,
+                   progress=None) -> ModeTable:
     """Stream the catalogue at ``path`` once and return its :class:`ModeTable`.
 
-    ``shells``: plane-wave shells to project on (needs positions and a fully periodic cell);
+    ``shells``: plane-wave shells to project on (needs positions and a fully periodic cell), fewer when
+    their waves would span more than ``wave_share`` of the 3N dimensions (:func:`usable_shells`);
     ``profiles``: radial profiles kept for this many lowest-P modes; ``write_back``: store recomputed
     participation ratios if the catalogue's are missing; ``progress(stage, done, total)``.
     """
@@ -108,9 +122,9 @@ def scan_catalogue(path, *, shells: int = DEFAULT_SHELLS, profiles: int = DEFAUL
     stored = catalogue.participation
     usable = bool(np.all(np.isfinite(stored)))
     if geometry is not None and geometry.periodic and shells:
-        table.shells = allowed_shells(geometry.box.cell, shells)
-        table.transverse = np.empty((catalogue.n_modes, shells))
-        table.longitudinal = np.empty((catalogue.n_modes, shells))
+        table.shells = usable_shells(geometry.box.cell, shells, 3 * catalogue.n_atoms, wave_share)
+        table.transverse = np.empty((catalogue.n_modes, table.shells.n_shells))
+        table.longitudinal = np.empty((catalogue.n_modes, table.shells.n_shells))
     if geometry is not None and geometry.positions is not None:
         table.centre = np.empty((catalogue.n_modes, 3))
     chosen = _profile_modes(stored, profiles) if usable and table.centre is not None else set()

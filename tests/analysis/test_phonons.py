@@ -5,7 +5,7 @@ import pytest
 from lattices import fcc_neighbours
 
 from eigenfarm.analysis.phonons import BEYOND, LOCAL, MIXED, PHONON, ClassRule, classify, identify_bands, \
-    shells_reach, sound_speeds
+    plane_wave_weight, shells_reach, sound_speeds
 from eigenfarm.analysis.planewaves import allowed_shells
 from eigenfarm.analysis.scan import scan_catalogue
 
@@ -41,7 +41,7 @@ def test_fcc_bands_hold_their_plane_wave_counts(fcc_modes):
     # Every mode of a one-atom-basis crystal is a plane wave, so shell s holds exactly 2m_s transverse and
     # m_s longitudinal modes (the counts above); all 3N − 3 modes are in the catalogue.
     path, w, U, config = fcc_modes
-    table = scan_catalogue(path, shells=6)
+    table = scan_catalogue(path, shells=6, wave_share=1.0)
     bands = identify_bands([table])
     mult = [6, 12, 8, 6, 24, 24]
     for band in bands:
@@ -67,13 +67,18 @@ def test_fcc_bands_hold_their_plane_wave_counts(fcc_modes):
 def test_fcc_classes(fcc_modes):
     # Plane waves of the projected shells are phonons; nothing in a crystal is quasi-localised (P ≥ 1/2).
     path, *_ = fcc_modes
-    table = scan_catalogue(path, shells=6)
+    table = scan_catalogue(path, shells=6, wave_share=1.0)
     bands = identify_bands([table])
     classes = classify(table, ClassRule(), shells_reach(bands))
     below = table.frequency < bands[0].frequency + 1e-9
     # the lowest level is 24-fold: 12 T⟨100⟩ waves and 12 of the ⟨110⟩ shell share its frequency
     assert np.all(classes[below] == PHONON) and below.sum() == 24
-    assert np.count_nonzero(classes == PHONON) == 3 * sum([6, 12, 8, 6, 24, 24])
+    # Degenerate levels mix projected and unprojected shells (eigh returns any basis of a level), so only
+    # the summed weight is exact: 3 Σ m_s = 240 modes' worth, all of it on modes classed phonon or mixed.
+    weight = plane_wave_weight(table)
+    assert weight.sum() == pytest.approx(3 * sum([6, 12, 8, 6, 24, 24]), abs=1e-8)
+    assert np.all(classes[weight > 1 - 1e-9] == PHONON) and np.count_nonzero(weight > 1 - 1e-9) >= 180
     assert not np.any(classes == LOCAL)
     assert set(classes) <= {PHONON, MIXED, BEYOND}
-    assert np.all(classes[table.frequency > shells_reach(bands)] == BEYOND)
+    above = table.frequency > shells_reach(bands)
+    assert np.all((classes[above] == BEYOND) | (classes[above] == PHONON))
