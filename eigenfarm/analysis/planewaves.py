@@ -23,6 +23,8 @@ from eigenfarm.errors import InputError
 
 #: atoms per block of the phase matrix exp(−i k·r): bounds memory at 16·n_k·ATOM_BLOCK bytes
 ATOM_BLOCK = 1 << 15
+#: largest phase table kept for a whole scan (bytes)
+PHASE_CACHE = 64 * 2**20
 
 
 @dataclass(frozen=True)
@@ -81,32 +83,55 @@ def allowed_shells(cell, n_shells: int, rtol: float = 1e-9) -> Shells:
     return Shells(k, index, magnitude, np.bincount(index, minlength=n_shells), label)
 
 
+class Projector:
+    """Weights of modes on the plane waves of ``shells`` for one sample.
+
+    ``positions`` (N, 3) length units, ``masses`` (N,).  The phase table cos/sin(k·r) (2·N·n_k doubles) is
+    built once and kept when it fits in ``cache_bytes``; otherwise it is rebuilt ATOM_BLOCK atoms at a
+    time for every call, so memory stays bounded for any N.
+    """
+
+    def __init__(self, positions: np.ndarray, masses: np.ndarray, shells: Shells, cache_bytes: int = PHASE_CACHE):
+        self.positions = np.asarray(positions, dtype=float)
+        masses = np.asarray(masses, dtype=float)
+        self.weight = np.sqrt(masses / masses.sum())
+        self.shells = shells
+        blocks = range(0, len(masses), ATOM_BLOCK)
+        cached = 16 * len(masses) * len(shells.k) <= cache_bytes
+        self._cache = [self._phases(start) for start in blocks] if cached else None
+
+    def _phases(self, start: int) -> tuple[np.ndarray, np.ndarray]:
+        angle = self.positions[start:start + ATOM_BLOCK] @ self.shells.k.T  # (atoms, n_k)
+        return np.cos(angle), np.sin(angle)
+
+    def weights(self, vectors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(T, L), each (b, n_shells), for ``vectors`` (b, 3N) mass-weighted unit rows: Σ over each shell's
+        k of |F_k|² − |k̂·F_k|² and |k̂·F_k|²."""
+        vectors = np.asarray(vectors, dtype=float)
+        b, n_k = len(vectors), len(self.shells.k)
+        re = np.zeros((b * 3, n_k))
+        im = np.zeros((b * 3, n_k))
+        for index, start in enumerate(range(0, len(self.weight), ATOM_BLOCK)):
+            stop = min(start + ATOM_BLOCK, len(self.weight))
+            X = vectors[:, 3 * start:3 * stop].reshape(b, stop - start, 3) * self.weight[start:stop, None]
+            X = np.ascontiguousarray(X.transpose(0, 2, 1)).reshape(b * 3, stop - start)  # rows: (mode, xyz)
+            cos, sin = self._cache[index] if self._cache is not None else self._phases(start)
+            re += X @ cos  # F = Σ X e^{−iθ}: two real products
+            im -= X @ sin
+        return self._split(re.reshape(b, 3, n_k), im.reshape(b, 3, n_k))
+
+    def _split(self, re: np.ndarray, im: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        shells = self.shells
+        total = np.einsum("bck,bck->bk", re, re) + np.einsum("bck,bck->bk", im, im)
+        unit = shells.k / np.linalg.norm(shells.k, axis=1)[:, None]
+        longitudinal = np.einsum("bck,kc->bk", re, unit) ** 2 + np.einsum("bck,kc->bk", im, unit) ** 2
+        per_shell = np.zeros((shells.n_shells, len(shells.k)))
+        per_shell[shells.shell, np.arange(len(shells.k))] = 1.0
+        return (total - longitudinal) @ per_shell.T, longitudinal @ per_shell.T
+
+
 def shell_weights(vectors: np.ndarray, positions: np.ndarray, masses: np.ndarray,
                   shells: Shells) -> tuple[np.ndarray, np.ndarray]:
-    """Transverse and longitudinal weights of each mode on each shell.
-
-    ``vectors`` (b, 3N) mass-weighted unit rows; ``positions`` (N, 3) length units; ``masses`` (N,).
-    Returns (T, L), each (b, n_shells): Σ over the shell's k of |F_k|² − |k̂·F_k|² and |k̂·F_k|².
-    The phase matrix is built ATOM_BLOCK atoms at a time, so memory stays bounded for any N.
-    """
-    vectors = np.asarray(vectors, dtype=float)
-    n_atoms = len(masses)
-    b = len(vectors)
-    weight = np.sqrt(np.asarray(masses, dtype=float) / np.sum(masses))
-    re = np.zeros((b * 3, len(shells.k)))
-    im = np.zeros((b * 3, len(shells.k)))
-    for start in range(0, n_atoms, ATOM_BLOCK):
-        stop = min(start + ATOM_BLOCK, n_atoms)
-        X = vectors[:, 3 * start:3 * stop].reshape(b, stop - start, 3) * weight[start:stop, None]
-        X = np.ascontiguousarray(X.transpose(0, 2, 1)).reshape(b * 3, stop - start)  # rows: (mode, xyz)
-        angle = positions[start:stop] @ shells.k.T  # (atoms, n_k); F = Σ X e^{−iθ}: two real products
-        re += X @ np.cos(angle)
-        im -= X @ np.sin(angle)
-    F = (re + 1j * im).reshape(b, 3, len(shells.k))
-    total = np.einsum("bck,bck->bk", F.real, F.real) + np.einsum("bck,bck->bk", F.imag, F.imag)
-    unit = shells.k / np.linalg.norm(shells.k, axis=1)[:, None]
-    along = np.einsum("bck,kc->bk", F, unit)
-    longitudinal = along.real**2 + along.imag**2
-    per_shell = np.zeros((shells.n_shells, len(shells.k)))
-    per_shell[shells.shell, np.arange(len(shells.k))] = 1.0
-    return (total - longitudinal) @ per_shell.T, longitudinal @ per_shell.T
+    """Transverse and longitudinal weights (b, n_shells) of ``vectors`` (b, 3N) on ``shells``, for atoms at
+    ``positions`` (N, 3) with ``masses`` (N,) — a one-off :class:`Projector`."""
+    return Projector(positions, masses, shells, cache_bytes=0).weights(vectors)

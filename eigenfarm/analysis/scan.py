@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from eigenfarm.analysis.localization import RadialProfile, inverse_participation, mode_centres, radial_profile
-from eigenfarm.analysis.planewaves import Shells, allowed_shells, shell_weights
+from eigenfarm.analysis.planewaves import Projector, Shells, allowed_shells
 from eigenfarm.catalogue import open_catalogue
 from eigenfarm.catalogue.geometry import Geometry
 from eigenfarm.catalogue.participation import atom_weights, participation_from_weights, store_participation
@@ -128,8 +128,9 @@ def scan_catalogue(path, *, shells: int = DEFAULT_SHELLS, profiles: int = DEFAUL
     if geometry is not None and geometry.positions is not None:
         table.centre = np.empty((catalogue.n_modes, 3))
     chosen = _profile_modes(stored, profiles) if usable and table.centre is not None else set()
+    projector = None if table.shells is None else Projector(geometry.positions, geometry.masses, table.shells)
     for modes, vectors in catalogue.iter_vectors(chunk_modes):
-        _scan_chunk(table, modes, vectors, geometry, chosen)
+        _scan_chunk(table, modes, vectors, geometry, chosen, projector)
         if progress:
             progress(f"scan {catalogue.path.name}", modes.stop, catalogue.n_modes)
     if table.centre is not None and not usable:  # profiles need P first: read back the chosen modes
@@ -141,15 +142,14 @@ def scan_catalogue(path, *, shells: int = DEFAULT_SHELLS, profiles: int = DEFAUL
 
 
 def _scan_chunk(table: ModeTable, modes: slice, vectors: np.ndarray, geometry: Geometry | None,
-                chosen: set[int]) -> None:
+                chosen: set[int], projector: Projector | None) -> None:
     weight = atom_weights(vectors)
     table.participation[modes] = participation_from_weights(weight)
     table.ipr[modes] = inverse_participation(weight)
     if table.centre is not None:
         table.centre[modes] = mode_centres(weight, geometry)
-    if table.shells is not None:
-        table.transverse[modes], table.longitudinal[modes] = shell_weights(
-            vectors, geometry.positions, geometry.masses, table.shells)
+    if projector is not None:
+        table.transverse[modes], table.longitudinal[modes] = projector.weights(vectors)
     for index in sorted(chosen.intersection(range(modes.start, modes.stop))):
         table.profiles[index] = radial_profile(weight[index - modes.start], table.centre[index], geometry)
 
