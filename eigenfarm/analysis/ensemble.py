@@ -20,6 +20,10 @@ from eigenfarm.errors import InputError
 
 
 
+#: frequencies this close (relative) to the band edge are at the edge (one degenerate level)
+LEVEL_RTOL = 1e-9
+
+
 @dataclass(frozen=True)
 class Settings:
     """Choices of one analysis (the options of ``eigenfarm analyze``).
@@ -103,14 +107,16 @@ class Analysis:
 
 def tail_cutoff(bands: list[Band], settings: Settings, top: float) -> tuple[float | None, str]:
     """(cutoff, rule text): ``settings.tail_below`` if given, else the first transverse band's lower edge
-    (10 % of its plane-wave weight lies below it); None when that band is not covered."""
+    (10 % of its plane-wave weight lies below it), exclusive; None when that band is not covered."""
     if settings.tail_below is not None:
         return min(settings.tail_below, top), "given (--tail-below)"
     first = next((b for b in bands if b.shell == 0 and b.polarisation == "T"), None)
     if first is None or not first.covered:
         return None, "no default: the first transverse band is not in the catalogues (give --tail-below)"
-    return min(first.low, top), (f"lower edge of the first transverse band (centre {first.frequency:.4g}): "
-                                 f"{BAND_EDGE:.0%} of its plane-wave weight lies below")
+    below_edge = first.low * (1 - LEVEL_RTOL)  # modes at the edge (to rounding) belong to the band
+    return min(below_edge, top), (f"strictly below the first transverse band's lower edge {first.low:.4g} "
+                                  f"(centre {first.frequency:.4g}; {BAND_EDGE:.0%} of its plane-wave weight "
+                                  "lies below the edge)")
 
 
 def _tail(tables: list[ModeTable], cutoff: float | None, settings: Settings) -> tuple[TailFit | None, str]:

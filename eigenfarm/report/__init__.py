@@ -15,6 +15,7 @@ is never replaced.
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 from eigenfarm.analysis.ensemble import Analysis
@@ -27,7 +28,7 @@ from eigenfarm.store.atomic import PartialStore, check_destination
 from eigenfarm.store.provenance import jsonable, stamp
 
 KIND = "eigenfarm-analysis"
-LABEL = "analysis report"
+LABEL = "report folder"
 
 
 def is_report(path) -> bool:
@@ -48,9 +49,20 @@ def _record(analysis: Analysis, sources: list[str]) -> dict:
                "speeds": g.speeds.to_dict() if g.speeds else None, "bands": [b.to_dict() for b in g.bands],
                "tail_cutoff": g.cutoff, "tail_cutoff_rule": g.cutoff_rule,
                "tail": g.tail.to_dict() if g.tail else None, "tail_note": g.tail_note} for g in analysis.groups]
-    return jsonable({"kind": KIND, "catalogues": sources, "units": analysis.units.name,
+    return _finite(jsonable({"kind": KIND, "catalogues": sources, "units": analysis.units.name,
                      "settings": _settings(analysis), "groups": groups, "finite_size": size_table(analysis),
-                     "notes": analysis.notes, **stamp()})
+                     "notes": analysis.notes, **stamp()}))
+
+
+def _finite(value):
+    """``value`` with every NaN/inf float replaced by None (JSON has no NaN)."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(v) for v in value]
+    return value
 
 
 def _settings(analysis: Analysis) -> dict:

@@ -1,23 +1,19 @@
-"""Catalogues with exactly known modes for the analysis tests: dense LAPACK (numpy.linalg.eigh) on the
+"""Catalogues with exactly known modes for the analysis and report tests: dense LAPACK (numpy.linalg.eigh) on the
 mass-weighted Hessian of a small sample, written through the real merge path (work folder → catalogue)."""
 
 from __future__ import annotations
 
 import numpy as np
-import pytest
-from lattices import fcc_crystal
 
 from eigenfarm.catalogue import WorkFolder, write_catalogue
 from eigenfarm.catalogue.geometry import Geometry
 from eigenfarm.plan.slicing import Plan, Slice
-from eigenfarm.samples.prepare import Recipe, make_sample
-from eigenfarm.samples.scenario import demo_potential
 from eigenfarm.solve.dynamical import dynamical_matrix
 
 ZERO_TOL = 1e-8
 
 
-def exact_catalogue(out, config, potential, keep: int | None = None, chunk_bytes: int | None = None):
+def exact_catalogue(out, config, potential, keep: int | None = None):
     """Write the catalogue of every non-zero mode of ``config`` (or the lowest ``keep``) at ``out``;
     returns (path, eigenvalues (3N,), eigenvectors (3N, 3N) columns) of the whole spectrum."""
     D = dynamical_matrix(potential.hessian(config), config.masses).toarray()
@@ -37,21 +33,3 @@ def exact_catalogue(out, config, potential, keep: int | None = None, chunk_bytes
             "trivial_zero_modes": 3, "preparation": dict(config.info) or None}
     path = write_catalogue(out, work, plan, info, geometry=Geometry(config.masses, config.positions, config.box))
     return path, w, U
-
-
-@pytest.fixture(scope="session")
-def fcc_modes(tmp_path_factory):
-    """FCC spring crystal, 5³ conventional cells (500 atoms), every mode."""
-    config, potential = fcc_crystal(5)
-    return (*exact_catalogue(tmp_path_factory.mktemp("fcc") / "fcc.modes.zarr", config, potential), config)
-
-
-@pytest.fixture(scope="session")
-def glass_modes(tmp_path_factory):
-    """Three 250-atom demo glasses, every mode (paths, eigenvalue arrays)."""
-    folder = tmp_path_factory.mktemp("glasses")
-    out = []
-    for sample in range(3):
-        config = make_sample(Recipe(250), seed=5, sample=sample)
-        out.append(exact_catalogue(folder / f"g{sample}.modes.zarr", config, demo_potential())[:2])
-    return out
