@@ -3,10 +3,14 @@
 **Bands.**  Shell s of allowed wave vectors (multiplicity m_s) holds 2m_s transverse and m_s longitudinal
 plane waves.  Over all 3N modes the weights of a shell's waves add up to exactly 2m_s (T) and m_s (L)
 (completeness of the eigenbasis), so the summed weight of the modes in a catalogue is the number of
-modes the band holds there, and it equals 2m_s / m_s when the catalogue covers the whole band.  The band
-frequency is that of the weight-averaged eigenvalue, λ̄ = Σ w λ / Σ w; its lower edge is the frequency
-below which 10 % of its weight lies and its width half the range between the 16 % and 84 % points (robust
-against the thin high-frequency tail a disordered sample's band weight has).
+modes the band holds there, and it equals 2m_s / m_s when the catalogue covers the whole band.
+Band positions are weighted quantiles *of that expected total*: the frequency below which a fraction q
+of 2m_s (or m_s) lies.  A catalogue is complete below its top frequency, so these quantiles are exact
+whenever the catalogue holds at least q of the band — a lowest-K catalogue that cuts a band still
+places it correctly.  The band frequency is the median (q = ½; the band is *covered* when at least half
+its weight is found), its lower edge the 10 % point and its width the median minus the 16 % point (one
+standard deviation for a Gaussian band, and blind to the thin high-frequency tail of band weight a
+disordered sample has).
 
 **Sound speeds** c = √λ̄ / |k| of the first shell's T and L bands (the lowest |k| is closest to the
 continuum limit; dispersion shows in the speeds of later shells, listed in the band table).
@@ -37,8 +41,8 @@ LOCAL = "quasi-localized"
 MIXED = "mixed"
 BEYOND = "beyond-shells"
 CLASSES = (PHONON, LOCAL, MIXED, BEYOND)
-#: a band counts as covered when the catalogues hold this share of its plane-wave weight
-COVERED_SHARE = 0.9
+#: a band counts as covered (its median known) when the catalogues hold this share of its weight
+COVERED_SHARE = 0.5
 #: weight fraction defining a band's lower edge
 BAND_EDGE = 0.1
 
@@ -56,8 +60,9 @@ class Band:
     """One polarisation of one plane-wave shell, over one or more samples of the same cell.
 
     ``k`` 1/length; ``modes``: plane-wave weight found (modes' worth); ``expected``: modes the band holds
-    (2m or m per sample); ``frequency`` (reported unit) of the weight-averaged eigenvalue; ``low`` the 10 %
-    weight point, ``width`` half the 16–84 % range of frequencies; ``speed`` √λ̄/|k| in the units' speed unit.
+    (2m or m per sample); ``frequency`` (reported unit) the median, ``low`` the 10 % point and ``width`` the
+    median minus the 16 % point of the expected weight (NaN where not enough weight was found);
+    ``speed`` ω/|k| of the median in the units' speed unit.
     """
 
     shell: int
@@ -74,6 +79,7 @@ class Band:
 
     @property
     def covered(self) -> bool:
+        """At least half of the band's weight is in the catalogues: its frequency is known."""
         return self.modes >= COVERED_SHARE * self.expected
 
     def to_dict(self) -> dict:
@@ -83,27 +89,26 @@ class Band:
 def _band(tables: list[ModeTable], shell: int, polarisation: str) -> Band:
     first = tables[0]
     weights = np.concatenate([(t.transverse if polarisation == "T" else t.longitudinal)[:, shell] for t in tables])
-    lam = np.concatenate([t.eigenvalue for t in tables])
     freq = np.concatenate([t.frequency for t in tables])
-    total = float(weights.sum())
-    mean_lam = float(weights @ lam / total) if total > 0 else np.nan
-    low, q16, q84 = weighted_quantiles(freq, weights, [BAND_EDGE, 0.16, 0.84])
     k = float(first.shells.magnitude[shell])
     mult = int(first.shells.multiplicity[shell])
-    per_sample = (2 if polarisation == "T" else 1) * mult
-    return Band(shell, first.shells.label[shell], polarisation, k, mult, float(per_sample * len(tables)), total,
-                float(first.units.frequency(mean_lam)), low, 0.5 * (q84 - q16),
-                float(np.sqrt(max(mean_lam, 0.0)) / k * first.units.speed_factor))
+    expected = float((2 if polarisation == "T" else 1) * mult * len(tables))
+    low, q16, median = weighted_quantiles(freq, weights, [BAND_EDGE, 0.16, 0.5], expected)
+    omega = np.sqrt(max(float(first.units.eigenvalue(median)), 0.0)) if np.isfinite(median) else np.nan
+    return Band(shell, first.shells.label[shell], polarisation, k, mult, expected, float(weights.sum()),
+                median, low, median - q16, float(omega / k * first.units.speed_factor))
 
 
-def weighted_quantiles(values: np.ndarray, weights: np.ndarray, q) -> list[float]:
-    """Values below which fractions ``q`` of the total (non-negative) weight lie; NaN without weight."""
+def weighted_quantiles(values: np.ndarray, weights: np.ndarray, q, total: float) -> list[float]:
+    """Values below which fractions ``q`` of ``total`` weight lie (weights non-negative, summing to at
+    most ``total``); NaN where the weights found do not reach that fraction."""
     order = np.argsort(values, kind="stable")
     cum = np.cumsum(weights[order])
-    if len(cum) == 0 or cum[-1] <= 0:
-        return [np.nan] * len(q)
-    index = np.searchsorted(cum, np.asarray(q) * cum[-1], side="left")
-    return [float(values[order][min(i, len(cum) - 1)]) for i in index]
+    out = []
+    for fraction in np.atleast_1d(q):
+        i = int(np.searchsorted(cum, fraction * total, side="left"))
+        out.append(float(values[order][i]) if i < len(cum) else np.nan)
+    return out
 
 
 def identify_bands(tables: list[ModeTable]) -> list[Band]:

@@ -49,6 +49,14 @@ def estimate(est, confidence: float, digits: int = 4) -> str:
 _PER_SAMPLE = {"seed", "sample"}
 
 
+def _number(value):
+    """``value`` as a float when it reads as one (records carried through XYZ comments are text)."""
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return value
+
+
 def _preparation(group: SizeGroup) -> str:
     """The samples' recorded preparation: shared settings once, varying numbers as their range."""
     records = [t.preparation for t in group.tables if t.preparation]
@@ -56,14 +64,14 @@ def _preparation(group: SizeGroup) -> str:
         return "not recorded in the catalogues (say how the samples were prepared when quoting these numbers)"
     parts = []
     for key in sorted({k for r in records for k in r} - _PER_SAMPLE):
-        values = [r[key] for r in records if key in r]
+        values = [_number(r[key]) for r in records if key in r]
         if all(v == values[0] for v in values):
             parts.append(f"{key} = {values[0]}")
-        elif all(isinstance(v, (int, float)) for v in values):
+        elif all(isinstance(v, float) for v in values):
             parts.append(f"{key} {num(min(values))} … {num(max(values))}")
         else:
             parts.append(f"{key} varies")
-    if any(r.get("anneal_steps") == 0 for r in records):
+    if any(_number(r.get("anneal_steps")) == 0 for r in records):
         parts.insert(0, "instant quench (no anneal) — a very poorly annealed glass")
     missing = len(group.tables) - len(records)
     return "; ".join(parts) + (f" ({missing} sample(s) without a record)" if missing else "")
@@ -97,7 +105,7 @@ def _class_counts(group: SizeGroup) -> str:
 def _band_table(group: SizeGroup, shells: int = 4) -> Table:
     rows = tuple((b.label, b.polarisation, num(b.expected, 3), num(b.modes, 4), "yes" if b.covered else "no",
                   num(b.frequency), num(b.width, 3), num(b.speed)) for b in group.bands if b.shell < shells)
-    return Table(("shell", "pol.", "modes expected", "weight found", "covered", "frequency", "width",
+    return Table(("shell", "pol.", "modes expected", "weight found", "covered", "median", "lower width",
                   f"speed ({group.tables[0].units.speed_unit})"), rows)
 
 
