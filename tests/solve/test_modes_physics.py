@@ -98,6 +98,12 @@ def test_ring_gives_degenerate_pairs_and_reports_its_floppy_modes(tmp_path):
     assert [mult for _, mult in levels(cat.eigenvalues)] == [2] * 11 + [1]
     assert cat.attrs["zero_modes"]["count"] == 2 * n + 1
     assert any("49 zero modes" in text for text in notices)
+    # the catalogue carries the sample's geometry in input order, for analyses without the store
+    assert "mass" in cat.group and "position" in cat.group and "cell" in cat.attrs
+    geometry = cat.geometry
+    np.testing.assert_allclose(geometry.box.minimum_image(geometry.positions - config.positions), 0, atol=1e-12)
+    np.testing.assert_array_equal(geometry.masses, config.masses)
+    np.testing.assert_array_equal(geometry.box.cell, config.box.cell)
 
 
 def test_simple_cubic_floppy_planes_are_reported_not_a_crash(tmp_path):
