@@ -33,7 +33,9 @@ class SolveRequest:
     ``window``: (lo, hi) frequencies in the store's reported unit (THz for metal, ω for reduced), or
     ``lowest``: the K lowest modes above the zero band.  ``backend``: factorisation backend name;
     ``slice_modes``: target modes per slice; ``zero_tol``: zero band |λ| ≤ zero_tol·λ_max;
-    ``strict``: negative eigenvalues are an error instead of a warning.
+    ``strict``: negative eigenvalues are an error instead of a warning; ``slice_method``: "lanczos"
+    (ARPACK in one process, any backend) or, with the slepc backend, "krylov-schur" or "interval"
+    (SLEPc on MPI ranks, :mod:`eigenfarm.farm.mpijob`).
     """
 
     window: tuple[float, float] | None = None
@@ -42,6 +44,7 @@ class SolveRequest:
     slice_modes: int = 40
     zero_tol: float = 1e-8
     strict: bool = False
+    slice_method: str = "lanczos"
     lanczos: LanczosSettings = field(default_factory=LanczosSettings)
 
     def settings(self) -> dict:
@@ -81,7 +84,12 @@ def _plan(runner: Runner, store: str, request: SolveRequest, units, n: int, work
         plan = _one_pass(runner, store, request, scale, work)
         if plan is not None:
             return plan
-    count = _counter(runner, store, request.backend)
+    return plan_slices(_counter(runner, store, request.backend), scale, request, units, n)
+
+
+def plan_slices(count, scale: float, request: SolveRequest, units, n: int) -> Plan:
+    """The slices of ``request`` (window or lowest K) for a D of size n × n with λ_max = ``scale``,
+    counting with ``count`` (a :data:`eigenfarm.plan.slicing.Counter`)."""
     if request.lowest is not None:
         return plan_lowest(count, scale, request.lowest, request.slice_modes, request.zero_tol, n)
     lo, hi = (float(units.eigenvalue(f)) for f in request.window)
@@ -100,25 +108,32 @@ def _one_pass(runner: Runner, store: str, request: SolveRequest, scale: float, w
                 {"lowest": request.lowest, "one_pass": True}, keep=request.lowest)
 
 
-def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: bool,
-            notice: Callable[[str], None]) -> StoreJob:
-    """Open ``store``, plan its slices (or reuse the plan of an interrupted run) and open its work folder."""
+def open_job(store, out, request: SolveRequest, overwrite: bool) -> tuple[WorkFolder, dict, object]:
+    """(work folder, catalogue info, store handle) of the job writing ``out`` from ``store``; refuses an
+    invalid store or an output that may not be written before any work."""
     handle = open_store(store)
     _refuse_invalid(store, handle.validation)
     out = Path(out)
     check_destination(out, overwrite)  # refuse now, not after hours of solving
     fingerprint = {"hessian_digest": handle.digest, "request": request.settings(), "eigenfarm": __version__}
     work = WorkFolder(out, fingerprint)
-    plan = work.plan
-    if plan is None:
-        plan = _plan(runner, str(store), request, handle.units, 3 * handle.n_atoms, work)
-        work.save_plan(plan)
     info = {"units": handle.units.name, "hessian_digest": handle.digest, "n_atoms": handle.n_atoms,
             "trivial_zero_modes": trivial_zero_modes(None if handle.box is None else handle.box.pbc),
             "store": str(Path(store).resolve()),
             "preparation": handle.provenance.get("source", {}).get("history")}
-    _census_notice(plan, info, request, store, notice)
-    return StoreJob(str(store), out, plan, work, info)
+    return work, info, handle
+
+
+def prepare(runner: Runner, store: str, out, request: SolveRequest, overwrite: bool,
+            notice: Callable[[str], None]) -> StoreJob:
+    """Open ``store``, plan its slices (or reuse the plan of an interrupted run) and open its work folder."""
+    work, info, handle = open_job(store, out, request, overwrite)
+    plan = work.plan
+    if plan is None:
+        plan = _plan(runner, str(store), request, handle.units, 3 * handle.n_atoms, work)
+        work.save_plan(plan)
+    census_notice(plan, info, request, store, notice)
+    return StoreJob(str(store), Path(out), plan, work, info)
 
 
 def _refuse_invalid(store, verdict: dict) -> None:
@@ -131,7 +146,7 @@ def _refuse_invalid(store, verdict: dict) -> None:
                      "see 'eigenfarm hessian STORE' for the verdict")
 
 
-def _census_notice(plan: Plan, info: dict, request: SolveRequest, store, notice) -> None:
+def census_notice(plan: Plan, info: dict, request: SolveRequest, store, notice) -> None:
     if plan.n_negative:
         message = (f"{store}: {plan.n_negative} NEGATIVE eigenvalue(s) below −{plan.zero_tol:g}·λ_max: "
                    "the configuration is not at an energy minimum (relax it first)")
@@ -156,6 +171,11 @@ def run(runner: Runner, jobs: list[StoreJob], request: SolveRequest, overwrite: 
                                              job.plan.scale, request.lanczos, job.work.save_part))
     if handles:
         runner.gather(handles, "slices", progress)
-    return [write_catalogue(job.out, job.work, job.plan, {**job.info, "solver": request.settings()},
-                            geometry=Geometry.from_store(open_store(job.store)), overwrite=overwrite,
-                            progress=progress) for job in jobs]
+    return [finish(job, request, overwrite, progress) for job in jobs]
+
+
+def finish(job: StoreJob, request: SolveRequest, overwrite: bool = False, progress=None) -> Path:
+    """Merge the finished slices of ``job`` into its catalogue; returns its path."""
+    return write_catalogue(job.out, job.work, job.plan, {**job.info, "solver": request.settings()},
+                           geometry=Geometry.from_store(open_store(job.store)), overwrite=overwrite,
+                           progress=progress)

@@ -31,17 +31,23 @@ def opened(path: str):
     return _OPEN[path]
 
 
+def count_near(count_below, sigma: float, what: str) -> tuple[float, int]:
+    """(shift used, ``count_below(shift)``): the number of eigenvalues of D below σ, the shift moved by a
+    hair (up to 6 times) while it is numerically an eigenvalue; ``what`` names the matrix in errors."""
+    step = 1e-9 * max(abs(sigma), 1e-300)
+    for attempt in range(6):
+        try:
+            return sigma, count_below(sigma)
+        except SingularShift:
+            sigma += step * (-2) ** attempt
+    raise SingularShift(f"{what}: no regular shift near {sigma!r}")
+
+
 def count_task(path: str, backend: str, sigma: float) -> tuple[float, int]:
     """(shift used, eigenvalues of D below it); the shift moves by a hair if it is an eigenvalue."""
     D = opened(path)[0]
     solver = get_backend(backend)
-    step = 1e-9 * max(abs(sigma), 1e-300)
-    for attempt in range(6):
-        try:
-            return sigma, solver.count_below(D, sigma)
-        except SingularShift:
-            sigma += step * (-2) ** attempt
-    raise SingularShift(f"{path}: no regular shift near {sigma!r}")
+    return count_near(lambda shift: solver.count_below(D, shift), sigma, path)
 
 
 def scale_task(path: str) -> float:
@@ -49,9 +55,9 @@ def scale_task(path: str) -> float:
     return largest_eigenvalue(opened(path)[0])
 
 
-def _save(save, path: str, piece: Slice, result: SliceResult, started: float) -> dict:
-    """Hand a slice's eigenpairs to ``save`` (vectors in input atom order); returns the slice record."""
-    original = opened(path)[1]
+def save_slice(save, original, piece: Slice, result: SliceResult, started: float) -> dict:
+    """Hand a slice's eigenpairs to ``save`` (vectors (3N, m) from store order to input atom order by
+    ``original`` (N,), the store's original_index); returns the slice record."""
     info = {"index": piece.index, "lo": piece.lo, "hi": piece.hi, "expected": piece.expected,
             "found": int(len(result.values)), "seconds": time.perf_counter() - started,
             "max_residual": float(result.residuals.max()) if len(result.values) else 0.0, **result.stats}
@@ -64,7 +70,7 @@ def slice_task(path: str, backend: str, piece: Slice, scale: float, settings: La
     started = time.perf_counter()
     D = opened(path)[0]
     result = solve_slice(D, get_backend(backend), piece.lo, piece.hi, piece.expected, scale, settings)
-    return _save(save, path, piece, result, started)
+    return save_slice(save, opened(path)[1], piece, result, started)
 
 
 def lowest_task(path: str, backend: str, k: int, scale: float, zero_tol: float, settings: LanczosSettings,
@@ -79,4 +85,4 @@ def lowest_task(path: str, backend: str, k: int, scale: float, zero_tol: float, 
     tau = zero_tol * scale
     piece = Slice(0, tau, found.check, found.count - found.n_zero)
     return {"check": found.check, "count": found.count, "n_zero": found.n_zero,
-            "record": _save(save, path, piece, found.modes, started)}
+            "record": save_slice(save, opened(path)[1], piece, found.modes, started)}

@@ -48,7 +48,7 @@ class LanczosSettings:
     seed: int = 0
 
 
-def _factor_near(backend: Backend, D, lo: float, hi: float):
+def factor_near(backend: Backend, D, lo: float, hi: float):
     """Factor D − σI at the slice centre, nudging σ inside the slice if it hits an eigenvalue."""
     width = hi - lo
     for fraction in (0.5, 0.5 + 1e-3, 0.5 - 2e-3, 0.47, 0.53):
@@ -65,7 +65,8 @@ def _deflated_operator(factor, basis: np.ndarray | None) -> sla.LinearOperator:
     return sla.LinearOperator((factor.n, factor.n), matvec=solve, dtype=float)
 
 
-def _in_slice(values, lo, hi, margin):
+def in_slice(values, lo, hi, margin):
+    """Mask of ``values`` in (lo − margin, hi + margin]."""
     return (values > lo - margin) & (values <= hi + margin)
 
 
@@ -113,14 +114,14 @@ def solve_slice(D: sp.spmatrix, backend: Backend, lo: float, hi: float, expected
     n = D.shape[0]
     if expected == 0:
         return SliceResult(np.zeros(0), np.zeros((n, 0)), np.zeros(0), {"shift": None, "runs": 0})
-    factor = _factor_near(backend, D, lo, hi)
+    factor = factor_near(backend, D, lo, hi)
     margin = 1e-10 * scale
-    values, vectors, runs = _accumulate(D, factor, lambda lam: _in_slice(lam, lo, hi, margin),
+    values, vectors, runs = _accumulate(D, factor, lambda lam: in_slice(lam, lo, hi, margin),
                                         lambda found: expected - len(found), settings)
     if len(values) < expected:
         raise IncompleteSlice(f"slice ({lo:.6g}, {hi:.6g}]: found {len(values)} of {expected} eigenpairs "
                               f"after {runs} Lanczos runs")
-    values, vectors = _best(values, vectors, expected, lo, hi, factor.sigma)
+    values, vectors = best_in_slice(values, vectors, expected, lo, hi, factor.sigma)
     stats = {"shift": factor.sigma, "runs": runs, **{f"factor_{k}": v for k, v in factor.stats.items()}}
     return _result(D, values, vectors, scale, stats)
 
@@ -226,7 +227,7 @@ def _orthonormal_ritz(D, basis: np.ndarray, approx: np.ndarray):
     return q @ rot, vals
 
 
-def _best(values, vectors, expected, lo, hi, sigma):
+def best_in_slice(values, vectors, expected, lo, hi, sigma):
     """Sort ascending; if more than ``expected`` were kept (boundary margin), keep those inside (lo, hi]
     and nearest σ."""
     order = np.argsort(values)

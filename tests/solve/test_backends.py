@@ -309,12 +309,12 @@ def test_auto_tries_cholmod_for_negative_shifts_and_counts_negative_eigenvalues(
 def test_capability_flags():
     flags = {name: (cls.provides_inertia, cls.handles_indefinite, cls.distributed) for name, cls in BACKENDS.items()}
     assert flags == {"auto": (True, True, False), "dense": (True, True, False), "superlu": (True, True, False),
-                     "cholmod": (False, False, False)}
+                     "cholmod": (False, False, False), "slepc": (True, True, True)}
     assert {"auto", "dense", "superlu"} <= set(available_backends())
 
 
 def test_registry_rejects_unknown_names_and_settings():
-    with pytest.raises(InputError, match="unknown backend 'mumps': choose one of auto, dense, superlu, cholmod"):
+    with pytest.raises(InputError, match="unknown backend 'mumps': choose one of auto, dense, superlu, cholmod, slepc"):
         get_backend("mumps")
     with pytest.raises(InputError, match="backend 'superlu': bad setting"):
         get_backend("superlu", pivoting="full")

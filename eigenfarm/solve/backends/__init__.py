@@ -6,6 +6,7 @@ name       provides_inertia  handles_indefinite  method
 dense      yes               yes                 LAPACK Bunch–Kaufman LDLᵀ (n ≤ 10,000)
 superlu    yes               yes                 SuperLU symmetric mode (LDLᵀ), METIS ordering
 cholmod    no (one bit)      no                  CHOLMOD supernodal Cholesky (optional install)
+slepc      yes               yes                 MUMPS LDLᵀ through PETSc, also on MPI ranks (optional)
 auto       yes               yes                 dense / cholmod (σ < 0) / superlu by n and σ
 =========  ================  ==================  ===============================================
 
@@ -20,21 +21,24 @@ from __future__ import annotations
 
 from eigenfarm.errors import InputError
 from eigenfarm.solve.backend import Backend
-from eigenfarm.solve.backends import cholmod
+from eigenfarm.solve.backends import cholmod, slepc
 from eigenfarm.solve.backends.auto import AutoBackend
 from eigenfarm.solve.backends.cholmod import CholmodBackend
 from eigenfarm.solve.backends.common import IndefiniteShift
 from eigenfarm.solve.backends.dense import DenseBackend
+from eigenfarm.solve.backends.slepc import SlepcBackend
 from eigenfarm.solve.backends.superlu import SuperLUBackend
 
 #: name → backend class
 BACKENDS: dict[str, type[Backend]] = {"auto": AutoBackend, "dense": DenseBackend, "superlu": SuperLUBackend,
-                                      "cholmod": CholmodBackend}
+                                      "cholmod": CholmodBackend, "slepc": SlepcBackend}
+#: optional backends → whether their dependencies are installed here
+OPTIONAL = {"cholmod": cholmod.available, "slepc": slepc.available}
 
 
 def available_backends() -> list[str]:
-    """Names usable on this machine (``cholmod`` only when scikit-sparse is installed)."""
-    return [name for name in BACKENDS if name != "cholmod" or cholmod.available()]
+    """Names usable on this machine (``cholmod`` only with scikit-sparse, ``slepc`` only with PETSc/SLEPc)."""
+    return [name for name in BACKENDS if name not in OPTIONAL or OPTIONAL[name]()]
 
 
 def get_backend(name: str, **settings) -> Backend:
@@ -50,5 +54,5 @@ def get_backend(name: str, **settings) -> Backend:
         raise InputError(f"backend {name!r}: bad setting ({exc})") from None
 
 
-__all__ = ["BACKENDS", "AutoBackend", "CholmodBackend", "DenseBackend", "IndefiniteShift", "SuperLUBackend",
+__all__ = ["BACKENDS", "AutoBackend", "CholmodBackend", "DenseBackend", "IndefiniteShift", "SlepcBackend", "SuperLUBackend",
            "available_backends", "get_backend"]
