@@ -49,7 +49,9 @@ def store_task(store: str, out: str, ranks: int, options: list[str]) -> str:
     """Solve ``store`` into ``out`` with an MPI job of ``ranks`` ranks; returns ``out``.  Its one-line
     error becomes this task's InputError."""
     command = [*mpiexec(ranks), sys.executable, "-m", "eigenfarm.cli", "solve", store, "--out", out, *options]
-    done = subprocess.run(command, capture_output=True, text=True)
+    # os.environ explicitly: a process that has started MPI (a singleton, e.g. a dask worker that used the
+    # slepc backend) carries Open MPI's variables in its C environment, and they derail a nested mpiexec
+    done = subprocess.run(command, capture_output=True, text=True, env=dict(os.environ))
     if done.returncode:
         lines = [line for line in done.stderr.splitlines() if line.startswith("eigenfarm: error:")]
         reason = lines[0].removeprefix("eigenfarm: error: ") if lines else (done.stderr.strip() or "no message")

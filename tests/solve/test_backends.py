@@ -13,20 +13,17 @@ import scipy.sparse.linalg as sla
 from threadpoolctl import threadpool_limits
 
 from eigenfarm.errors import InputError
-from eigenfarm.potentials.base import Potential
-from eigenfarm.potentials.pair import PairTerm
-from eigenfarm.samples.prepare import Recipe, make_sample
-from eigenfarm.samples.scenario import demo_potential
 from eigenfarm.solve.backend import Inertia, SingularShift
 from eigenfarm.solve.backends import (BACKENDS, IndefiniteShift, SuperLUBackend, available_backends, cholmod,
-                                      get_backend)
+                                      get_backend, slepc)
 from eigenfarm.solve.backends.common import block_diagonal_signs, shifted
 from eigenfarm.solve.backends.ordering import metis_available, nested_dissection
 from eigenfarm.solve.backends.superlu import ORDERINGS
-from eigenfarm.structure.box import Box
-from eigenfarm.structure.configuration import Configuration
 
-INERTIA_BACKENDS = ("dense", "superlu", "auto")
+needs_slepc = pytest.mark.skipif(not slepc.available(), reason="PETSc/SLEPc (petsc4py, slepc4py) not installed: make slepc")
+#: the slepc backend here is its in-process (one rank) use; tests/solve/test_slepc_mpi.py runs it on 2 ranks
+BUILT_IN = ("dense", "superlu", "auto")
+INERTIA_BACKENDS = (*BUILT_IN, pytest.param("slepc", marks=needs_slepc))
 #: settings that make ``auto`` use its sparse branches on the small test matrices
 SETTINGS = {"auto": {"dense_max_n": 100}}
 needs_cholmod = pytest.mark.skipif(not cholmod.available(), reason="scikit-sparse (CHOLMOD) not installed")
@@ -38,36 +35,6 @@ def one_blas_thread():
     (../shared/FACTS.md)."""
     with threadpool_limits(1):
         yield
-
-
-def mass_weighted(H: sp.spmatrix, masses: np.ndarray) -> sp.csr_matrix:
-    """D = M^-½ H M^-½ for atom masses (N,)."""
-    scale = sp.diags(np.repeat(masses, 3) ** -0.5)
-    return (scale @ H @ scale).tocsr()
-
-
-@pytest.fixture(scope="module")
-def glass():
-    """A 300-atom demo glass with species masses 1 (A) and 2 (B): (D (900 × 900), eigenvalues)."""
-    config = make_sample(Recipe(300), seed=3, sample=0)
-    masses = np.where(config.species == "A", 1.0, 2.0)
-    D = mass_weighted(demo_potential().hessian(config), masses)
-    return D, np.linalg.eigvalsh(D.toarray())
-
-
-@pytest.fixture(scope="module")
-def crystal():
-    """FCC crystal, 3³ cubic cells (108 atoms), nearest-neighbour springs k = 1 at rest, m = 1:
-    (D (324 × 324), eigenvalues, distinct eigenvalues).  Plane waves make them heavily degenerate."""
-    basis = np.array([[0, 0, 0], [0, .5, .5], [.5, 0, .5], [.5, .5, 0]])
-    grid = np.array([[i, j, k] for i in range(3) for j in range(3) for k in range(3)])
-    positions = (grid[:, None, :] + basis[None]).reshape(-1, 3)
-    spring = PairTerm("spring", ["*"], {("*", "*"): {"k": 1.0, "r0": 2 ** -0.5, "rc": 0.85}})
-    config = Configuration(positions, ["X"] * len(positions), Box.cubic(3.0))
-    D = Potential(["*"], [spring]).hessian(config).tocsr()
-    values = np.linalg.eigvalsh(D.toarray())
-    distinct = values[np.r_[True, np.diff(values) > 1e-9]]
-    return D, values, distinct
 
 
 def count_below(values: np.ndarray, sigma: float) -> int:
@@ -130,7 +97,8 @@ def test_block_diagonal_signs_match_eigenvalues():
 # ------------------------------------------------------------------------------------------- solves
 def solve_cases(values):
     """(backend name, σ) pairs: inertia backends at an interior shift, CHOLMOD below the spectrum."""
-    cases = [(name, 0.5 * (values[400] + values[401])) for name in INERTIA_BACKENDS]
+    names = BUILT_IN + (("slepc",) if slepc.available() else ())
+    cases = [(name, 0.5 * (values[400] + values[401])) for name in names]
     if cholmod.available():
         cases.append(("cholmod", values[0] - 0.5))
     return cases
