@@ -135,6 +135,7 @@ def _catalogue_paths(stores: list[str], out: str) -> list[Path]:
 
 
 def _request(args):
+    from eigenfarm.farm import mpijob
     from eigenfarm.farm.solvejob import SolveRequest
     from eigenfarm.solve.backends import get_backend
     from eigenfarm.solve.slicer import LanczosSettings
@@ -144,7 +145,8 @@ def _request(args):
         raise InputError("--slice-modes must be at least 1")
     return SolveRequest(window=_window(args.window) if args.window else None, lowest=args.lowest,
                         backend=args.backend, slice_modes=args.slice_modes, zero_tol=args.zero_tol,
-                        strict=args.strict, lanczos=LanczosSettings(tol=args.tol))
+                        strict=args.strict, lanczos=LanczosSettings(tol=args.tol, ncv=args.ncv),
+                        slice_method=mpijob.slice_method(args.backend, args.slice_method, args.ranks))
 
 
 def solve_stores(stores, outs, request, client, overwrite: bool) -> list[Path]:
@@ -172,17 +174,32 @@ def solve_stores(stores, outs, request, client, overwrite: bool) -> list[Path]:
         raise
 
 
+def _solve_on(args, outs, request, client) -> list[Path]:
+    """The dask job (``client``; None: in this process), each store an MPI job of its own with --ranks."""
+    if args.ranks:
+        from eigenfarm.farm import mpilaunch
+        from eigenfarm.farm.runner import runner_for
+
+        return mpilaunch.solve_stores(runner_for(client), args.stores, outs, request, args.ranks, args.overwrite,
+                                      ProgressBar())
+    return solve_stores(args.stores, outs, request, client, args.overwrite)
+
+
 def run_solve(args) -> None:
     from eigenfarm.catalogue import open_catalogue
+    from eigenfarm.farm import mpijob
 
     request = _request(args)
     outs = _catalogue_paths(args.stores, args.out)
-    if args.inline:
-        paths = solve_stores(args.stores, outs, request, None, args.overwrite)
+    if not args.ranks and mpijob.runs_here(request):  # this process is a rank of an MPI job
+        notice = lambda text: print(text, file=sys.stderr, flush=True)  # noqa: E731
+        paths = mpijob.solve_stores(args.stores, outs, request, args.overwrite, notice, ProgressBar())
+    elif args.inline:
+        paths = _solve_on(args, outs, request, None)
     else:
         with _client(args) as client:
             _announce(client)
-            paths = solve_stores(args.stores, outs, request, client, args.overwrite)
+            paths = _solve_on(args, outs, request, client)
     for path in paths:
         _say(open_catalogue(path).summary())
 
@@ -194,9 +211,93 @@ def run_modes(args) -> None:
         _say(open_catalogue(path).summary())
 
 
+def run_density(args) -> Path:
+    """KPM density of states of one store into the folder --out (eigenfarm.analysis.kpm)."""
+    from eigenfarm.analysis.kpm import check_settings, estimate_density
+    from eigenfarm.analysis.kpm_report import is_density_folder, write_density
+    from eigenfarm.store import open_store
+    from eigenfarm.store.atomic import check_destination
+
+    check_settings(args.moments, args.probes)
+    store = open_store(args.store)
+    check_destination(args.out, args.overwrite, is_density_folder, "density folder")  # refuse before the work
+    settings = dict(moments=args.moments, probes=args.probes, seed=args.seed, progress=ProgressBar())
+    if args.inline:
+        estimate = estimate_density(store, client=None, **settings)
+    else:
+        with _client(args) as client:
+            _announce(client)
+            estimate = estimate_density(store, client=client, **settings)
+    path = write_density(estimate, args.out, args.overwrite)
+    _say((path / "density.md").read_text())
+    return path
+
+
+def analysis_settings(args):
+    """The analysis Settings from ``eigenfarm analyze`` options."""
+    from eigenfarm.analysis.ensemble import Settings
+    from eigenfarm.analysis.phonons import ClassRule
+
+    return Settings(shells=args.shells, chunk_modes=args.chunk_modes, bins=args.bins,
+                    rule=ClassRule(args.phonon_weight, args.local_participation), tail_below=args.tail_below,
+                    tail_above=args.tail_above, fixed_exponent=args.fixed_exponent, bootstrap=args.bootstrap,
+                    confidence=args.confidence, seed=args.seed)
+
+
+def analyze_catalogues(paths: list, out, settings, overwrite: bool = False) -> Path:
+    """Analyse the catalogues ``paths`` and write the report folder ``out``; prints where it is."""
+    from eigenfarm.analysis.ensemble import analyse
+    from eigenfarm.report import check_report_destination, write_report
+
+    check_report_destination(out, overwrite)  # refuse before the work
+    analysis = analyse([str(p) for p in paths], settings, progress=ProgressBar())
+    path = write_report(analysis, out, [str(p) for p in paths], overwrite)
+    for note in analysis.notes:
+        _say(f"note: {note}")
+    _say(f"report: {path / 'summary.html'} (also summary.md, tables *.csv, figures *.png/*.svg)")
+    return path
+
+
+def run_analyze(args) -> Path:
+    """Tables, plots and the summary page of one or more catalogues (eigenfarm.analysis, eigenfarm.report)."""
+    return analyze_catalogues(args.catalogue, args.out, analysis_settings(args), args.overwrite)
+
+
+def run_gauge(args) -> Path:
+    """Solver settings tried on one store (eigenfarm.trials), with dense and eigsh references."""
+    from eigenfarm.solve.backends import get_backend
+    from eigenfarm.trials.grid import expand
+    from eigenfarm.trials.run import check_gauge_destination, gauge
+
+    for name in args.backends:
+        get_backend(name)  # unknown or uninstalled backends fail before any run
+    if min(args.workers) < 0 or min(args.slice_modes) < 1 or any(v is not None and v < 2 for v in args.ncv):
+        raise InputError("--workers must be ≥ 0, --slice-modes ≥ 1 and --ncv ≥ 2")
+    references = [r for r in args.references if r != "none"]
+    unknown = sorted(set(references) - {"dense", "eigsh"})
+    if unknown:
+        raise InputError(f"--references: unknown {', '.join(unknown)} (choose dense, eigsh or none)")
+    if "eigsh" in references and args.window:
+        raise InputError("--references eigsh needs --lowest (scipy's eigsh has no window mode)")
+    check_gauge_destination(args.out, args.overwrite)
+    window = _window(args.window) if args.window else None
+    methods = [None if m == "default" else m for m in args.slice_methods]
+    unknown = sorted({m for m in methods if m is not None} - {"krylov-schur", "interval", "lanczos"})
+    if unknown or min(args.ranks) < 1:
+        raise InputError(f"--slice-methods: unknown {', '.join(unknown)}" if unknown else "--ranks must be ≥ 1")
+    trials = expand(args.backends, args.slice_modes, args.ncv, args.tol, args.workers, args.ranks, methods)
+    if not trials:
+        raise InputError("no setting to try: --ranks above 1 and --slice-methods need --backends slepc")
+    path = gauge(args.store, args.out, trials, references, args.lowest, window,
+                 args.overwrite, progress=_say)
+    _say((path / "gauge.md").read_text())
+    return path
+
+
 def run_demo(args) -> None:
     """The main job on the built-in scenario: an ensemble of glasses → Hessian stores → the lowest modes
     of every sample in one ensemble solve → mode catalogues."""
+    from eigenfarm.analysis.ensemble import Settings
     from eigenfarm.catalogue import open_catalogue
     from eigenfarm.farm.solvejob import SolveRequest
     from eigenfarm.samples.ensemble import make_ensemble
@@ -230,5 +331,6 @@ def run_demo(args) -> None:
                          client, overwrite=False)
     for catalogue in catalogues:
         _say(open_catalogue(catalogue).summary())
+    report = analyze_catalogues(catalogues, out / "report", Settings(), overwrite=True)
     _say(f"demo finished: samples in {out / 'samples'}, Hessian stores in {out / 'hessians'}, "
-         f"mode catalogues in {out / 'modes'}")
+         f"mode catalogues in {out / 'modes'}, report in {report}")

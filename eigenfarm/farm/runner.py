@@ -31,6 +31,20 @@ class Runner(ABC):
     def gather(self, handles: list, stage: str = "", progress: Progress | None = None) -> list:
         """Results of ``handles`` in order; calls ``progress`` as tasks finish; raises a task's error."""
 
+    @property
+    def slots(self) -> int:
+        """How many places tasks can be kept apart in (dask workers; 1 in this process)."""
+        return 1
+
+    def submit_near(self, slot: int, fn, *args):
+        """Like :meth:`submit`, preferring place ``slot`` (modulo :attr:`slots`), so tasks that share state
+        cached in a worker process (see eigenfarm.analysis.shardcache) meet it again; the default ignores it."""
+        return self.submit(fn, *args)
+
+    def everywhere(self, fn, *args) -> list:
+        """Call ``fn(*args)`` now in every process that runs tasks (here: this one); their results."""
+        return [fn(*args)]
+
     def release(self, handles: list) -> None:
         """Forget results no longer needed (frees their memory)."""
 
@@ -93,9 +107,30 @@ class DaskRunner(Runner):
         self.client = client
         self.retries = retries
         self.submitted = []
+        self._workers = None
 
     def submit(self, fn, *args):
         future = self.client.submit(fn, *args, pure=False, retries=self.retries)
+        self.submitted.append(future)
+        return future
+
+    def _addresses(self) -> list:
+        if not self._workers:  # fixed at first use: a slot keeps meaning the same worker
+            self._workers = sorted(self.client.nthreads())
+        return self._workers
+
+    @property
+    def slots(self) -> int:
+        return max(1, len(self._addresses()))
+
+    def submit_near(self, slot, fn, *args):
+        """Prefer the worker of ``slot``; a loose restriction, so if that worker has gone another runs the
+        task (work stealing may also move one now and then)."""
+        workers = self._addresses()
+        if not workers:
+            return self.submit(fn, *args)
+        future = self.client.submit(fn, *args, pure=False, retries=self.retries,
+                                    workers=[workers[slot % len(workers)]], allow_other_workers=True)
         self.submitted.append(future)
         return future
 
@@ -103,6 +138,10 @@ class DaskRunner(Runner):
         future = self.client.scatter(value, broadcast=True, hash=False)
         self.submitted.append(future)
         return future
+
+    def everywhere(self, fn, *args):
+        """On every worker, outside the task graph (``Client.run``)."""
+        return list(self.client.run(fn, *args).values())
 
     def gather(self, handles, stage="", progress=None):
         from distributed import as_completed
