@@ -28,7 +28,7 @@ from pathlib import Path
 from eigenfarm.errors import ConvergenceError, InputError
 from eigenfarm.farm import solvejob
 from eigenfarm.farm.tasks import count_near, save_slice
-from eigenfarm.solve.backends.slepc import SlepcBackend, available, require
+from eigenfarm.solve.backends.slepc import SlepcBackend, require
 from eigenfarm.solve.slicer import IncompleteSlice
 
 
@@ -36,11 +36,15 @@ class RankError(InputError):
     """A failure on some rank, raised on every rank alike."""
 
 
-def world_size() -> int:
-    """Number of MPI ranks this process was started with (1 without mpiexec or without PETSc)."""
-    if not available():
-        return 1
-    return require()[0].COMM_WORLD.getSize()
+#: variables an MPI launcher sets in each rank's environment (Open MPI, MPICH/Hydra and Intel MPI, PMIx/srun)
+LAUNCHER_VARIABLES = ("OMPI_COMM_WORLD_SIZE", "PMI_SIZE", "PMIX_RANK")
+
+
+def launched_by_mpi() -> bool:
+    """True in a process started by mpiexec/srun (any number of ranks, one included).  Read from the
+    environment, so this process does not start MPI to ask (a process that has started MPI would hand
+    its state to dask workers it spawns, and theirs would fail to start)."""
+    return any(name in os.environ for name in LAUNCHER_VARIABLES)
 
 
 def slice_method(backend: str, asked: str | None, ranks: int | None) -> str:
@@ -52,11 +56,13 @@ def slice_method(backend: str, asked: str | None, ranks: int | None) -> str:
         raise InputError(f"--slice-method {asked} runs SLEPc, which needs --backend slepc")
     if ranks and backend != "slepc":
         raise InputError(f"--ranks runs MPI jobs, which need --backend slepc (not {backend!r})")
-    if asked == "lanczos" and backend == "slepc" and world_size() > 1:
+    if asked == "lanczos" and launched_by_mpi():
         raise InputError("--slice-method lanczos runs in one process; under mpiexec choose krylov-schur or interval")
+    if launched_by_mpi() and not (backend == "slepc" or ranks):
+        raise InputError(f"under mpiexec use --backend slepc (backend {backend!r} would solve the whole job on every rank)")
     if asked:
         return asked
-    return "krylov-schur" if backend == "slepc" and (ranks or world_size() > 1) else "lanczos"
+    return "krylov-schur" if backend == "slepc" and (ranks or launched_by_mpi()) else "lanczos"
 
 
 def runs_here(request) -> bool:

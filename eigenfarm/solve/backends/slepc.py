@@ -135,7 +135,8 @@ class SlepcBackend(Backend):
     distributed = True
 
     def __init__(self, ordering: str = "auto", null_pivot: float = 1e-12, zero_tol: float = 1e-12):
-        require()
+        if not available():  # checked without starting MPI: PETSc is loaded at the first factorisation
+            require()
         if ordering not in ORDERINGS:
             raise InputError(f"slepc backend: unknown ordering {ordering!r}: choose one of {', '.join(ORDERINGS)}")
         self.ordering, self.null_pivot, self.zero_tol = ordering, float(null_pivot), float(zero_tol)
