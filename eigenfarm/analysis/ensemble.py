@@ -7,7 +7,7 @@ Data flow: catalogue paths → :func:`~eigenfarm.analysis.scan.scan_catalogue` (
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -16,7 +16,10 @@ from eigenfarm.analysis.phonons import BAND_EDGE, LOCAL, Band, ClassRule, SoundS
     shells_reach, sound_speeds
 from eigenfarm.analysis.scan import DEFAULT_PROFILES, DEFAULT_SHELLS, WAVE_SHARE, ModeTable, scan_catalogue
 from eigenfarm.analysis.tail import TailFit, fit_tail
+from eigenfarm.analysis.wavebands import band_from_store
 from eigenfarm.errors import InputError
+from eigenfarm.store import open_store
+from eigenfarm.store.atomic import is_store
 
 
 
@@ -31,7 +34,9 @@ class Settings:
     ``shells`` plane-wave shells (at most ``wave_share`` of the 3N dimensions); ``profiles`` radial profiles per sample; ``chunk_modes`` vectors per read
     (None: the stored chunk); ``bins`` histogram bins; ``tail_below``/``tail_above`` the fit range in the
     reported frequency (None: below the first transverse band, see :func:`tail_cutoff`);
-    ``fixed_exponent`` β for the fixed-exponent prefactor; ``bootstrap`` replicates, ``confidence``, ``seed``.
+    ``fixed_exponent`` β for the fixed-exponent prefactor; ``store_bands``: place first-shell bands the
+    catalogues do not cover from the Hessian stores (:mod:`eigenfarm.analysis.wavebands`) when they are
+    still there; ``bootstrap`` replicates, ``confidence``, ``seed``.
     """
 
     shells: int = DEFAULT_SHELLS
@@ -43,6 +48,7 @@ class Settings:
     tail_below: float | None = None
     tail_above: float = 0.0
     fixed_exponent: float = 4.0
+    store_bands: bool = True
     bootstrap: int = 2000
     confidence: float = 0.95
     seed: int = 0
@@ -132,9 +138,45 @@ def _tail(tables: list[ModeTable], cutoff: float | None, settings: Settings) -> 
     return fit, ""
 
 
-def analyse_group(tables: list[ModeTable], settings: Settings) -> SizeGroup:
-    """Everything about samples of one size."""
+def _stores(tables: list[ModeTable]) -> list | None:
+    """The Hessian stores the catalogues were solved from, if every one is still there unchanged."""
+    stores = []
+    for table in tables:
+        path = table.store
+        if not path or not is_store(path):
+            return None
+        store = open_store(path)
+        if store.digest != table.hessian_digest or store.positions is None:
+            return None
+        stores.append(store)
+    return stores
+
+
+def _fill_first_bands(bands: list[Band], tables: list[ModeTable], notes: list[str]) -> list[Band]:
+    """Replace the first shell's uncovered bands by bands placed from the stores (mean over samples of
+    each sample's band quantiles), noting the kernel resolution."""
+    missing = [b for b in bands if b.shell == 0 and not b.covered]
+    stores = _stores(tables) if missing else None
+    if not missing or stores is None:
+        return bands
+    replaced = {}
+    for band in missing:
+        placed = [band_from_store(store, t.shells, 0, band.polarisation) for store, t in zip(stores, tables)]
+        mean = {name: float(np.mean([getattr(b, name) for b, _ in placed]))
+                for name in ("frequency", "low", "width", "speed")}
+        replaced[band.polarisation] = replace(band, source="store", **mean)
+        notes.append(f"{tables[0].n_atoms} atoms: first {band.polarisation} band placed from the Hessian stores "
+                     f"(plane-wave spectral measure, KPM; resolution ±{max(r for _, r in placed):.2g} "
+                     f"{tables[0].units.frequency_unit}): the catalogues hold {band.modes:.3g} of its "
+                     f"{band.expected:g} modes")
+    return [replaced.get(b.polarisation, b) if b.shell == 0 else b for b in bands]
+
+
+def analyse_group(tables: list[ModeTable], settings: Settings, notes: list[str]) -> SizeGroup:
+    """Everything about samples of one size; remarks for the reader are appended to ``notes``."""
     bands = identify_bands(tables)
+    if settings.store_bands and bands:
+        bands = _fill_first_bands(bands, tables, notes)
     speeds = sound_speeds(bands, tables[0]) if bands else None
     reach = shells_reach(bands) if bands else np.inf
     classes = [classify(t, settings.rule, reach) for t in tables]
@@ -173,6 +215,7 @@ def analyse(paths, settings: Settings = Settings(), progress=None) -> Analysis:
     grouped: dict[tuple, list[ModeTable]] = {}
     for t in tables:
         grouped.setdefault(_group_key(t), []).append(t)
-    groups = [analyse_group(g, settings) for _, g in sorted(grouped.items(), key=lambda item: item[0][0])]
-    notes = _notes(tables) + [f"{g.n_atoms} atoms: tail not fitted — {g.tail_note}" for g in groups if g.tail is None]
+    notes = _notes(tables)
+    groups = [analyse_group(g, settings, notes) for _, g in sorted(grouped.items(), key=lambda item: item[0][0])]
+    notes += [f"{g.n_atoms} atoms: tail not fitted — {g.tail_note}" for g in groups if g.tail is None]
     return Analysis(groups, settings, notes)

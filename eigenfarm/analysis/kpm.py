@@ -32,6 +32,7 @@ from __future__ import annotations
 import contextlib
 import functools
 import time
+from collections import deque
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -107,26 +108,39 @@ def lanczos_bounds(op: ShardedDynamical, steps: int = DEFAULT_LANCZOS_STEPS, see
 
 
 def chebyshev_moments(op: ShardedDynamical, lo: float, hi: float, n_moments: int, n_probes: int,
-                      seed: int = 0, progress=None) -> np.ndarray:
+                      seed: int = 0, progress=None, start: list | None = None) -> np.ndarray:
     """(n_moments, n_probes) per-probe moments μ_n^r of D scaled from [lo, hi] to [−1, 1] (module
-    docstring, item 2); probes are Rademacher, stream 0 of ``seed``.  Raises :class:`BoundsExceeded`."""
+    docstring, item 2); probes are Rademacher, stream 0 of ``seed``, divided by 3N — or the unit columns
+    of the blocked vector ``start`` (then μ_n is ⟨w, T_n w⟩ itself, the spectral measure of each column
+    w).  Raises :class:`BoundsExceeded`."""
     c, h = (hi + lo) / 2, (hi - lo) / 2
     steps = n_moments // 2
     mu = np.zeros((2 * steps + 1, n_probes))
-    previous = op.random(n_probes, seed, stream=0)
+    previous = op.random(n_probes, seed, stream=0) if start is None else start
+    norm = op.n_dof if start is None else 1.0
     current = op.combine(1 / h, previous, [(-c / h, previous)])
-    d = op.dots([(previous, previous), (current, previous), (current, current)]) / op.n_dof
+    d = op.dots([(previous, previous), (current, previous), (current, current)]) / norm
     mu[0], mu[1], mu[2] = d[0], d[1], 2 * d[2] - d[0]
     if progress:
         progress("Chebyshev moments", 1, steps)
-    for n in range(2, steps + 1):
-        following = op.combine(2 / h, current, [(-2 * c / h, current), (-1.0, previous)])
-        d = op.dots([(following, following), (following, current)]) / op.n_dof
+    pending = deque()  # (n, inner-product tasks) submitted, not yet collected
+
+    def collect():
+        n, tasks = pending.popleft()
+        d = op.collect(tasks) / norm
         mu[2 * n], mu[2 * n - 1] = 2 * d[0] - mu[0], 2 * d[1] - mu[1]
-        op.release(previous)
-        previous, current = current, following
         if progress:
             progress("Chebyshev moments", n, steps)
+
+    for n in range(2, steps + 1):
+        following = op.combine(2 / h, current, [(-2 * c / h, current), (-1.0, previous)])
+        pending.append((n, op.submit_dots([(following, following), (following, current)])))
+        while len(pending) > op.lookahead:
+            collect()
+        op.release(previous)  # its last consumer has run (in process) or holds it until it has (dask)
+        previous, current = current, following
+    while pending:
+        collect()
     op.release(previous, current)
     worst = float(np.abs(mu).max())
     if not worst <= 1 + 1e-6:
@@ -279,3 +293,24 @@ def estimate_density(store, moments: int = DEFAULT_MOMENTS, probes: int = DEFAUL
     op.close()
     info = {"path": str(store.path), "digest": store.digest, "n_atoms": store.n_atoms, "n_shards": store.n_shards}
     return DensityEstimate(mu, bounds, op.n_dof, store.units, seed, info, seconds)
+
+
+def plane_wave_moments(store: HessianStore, block: np.ndarray, moments: int, client=None,
+                       *, lanczos_steps: int = DEFAULT_LANCZOS_STEPS) -> tuple[np.ndarray, SpectralBounds]:
+    """(moments, columns) Chebyshev moments ⟨w, T_n(D̃) w⟩ of the unit columns w of ``block`` (3N, c), in
+    the store's atom order, and the bounds used — the spectral measure of given vectors (used to place
+    plane-wave bands, :mod:`eigenfarm.analysis.wavebands`)."""
+    runner = runner_for(client)
+    op = ShardedDynamical(store, runner)
+    try:
+        bounds = lanczos_bounds(op, lanczos_steps)
+        rows = 3 * np.asarray(op.bounds)
+        start = [runner.scatter(np.ascontiguousarray(block[a:b])) for a, b in zip(rows[:-1], rows[1:])]
+        try:
+            mu = chebyshev_moments(op, bounds.lo, bounds.hi, moments, block.shape[1], start=start)
+        except BoundsExceeded:
+            bounds = bounds.widened(10.0)
+            mu = chebyshev_moments(op, bounds.lo, bounds.hi, moments, block.shape[1], start=start)
+    finally:
+        op.close()
+    return mu, bounds

@@ -62,7 +62,8 @@ class Band:
     ``k`` 1/length; ``modes``: plane-wave weight found (modes' worth); ``expected``: modes the band holds
     (2m or m per sample); ``frequency`` (reported unit) the median, ``low`` the 10 % point and ``width`` the
     median minus the 16 % point of the expected weight (NaN where not enough weight was found);
-    ``speed`` ω/|k| of the median in the units' speed unit.
+    ``speed`` ω/|k| of the median in the units' speed unit; ``source`` "catalogue" (from the modes'
+    plane-wave weights) or "store" (placed from the Hessian store, :mod:`eigenfarm.analysis.wavebands`).
     """
 
     shell: int
@@ -76,11 +77,13 @@ class Band:
     low: float
     width: float
     speed: float
+    source: str = "catalogue"
 
     @property
     def covered(self) -> bool:
-        """At least half of the band's weight is in the catalogues: its frequency is known."""
-        return self.modes >= COVERED_SHARE * self.expected
+        """The band's frequency is known: placed from the store, or at least half its weight is in the
+        catalogues."""
+        return self.source == "store" or self.modes >= COVERED_SHARE * self.expected
 
     def to_dict(self) -> dict:
         return {**asdict(self), "covered": self.covered}

@@ -53,6 +53,8 @@ class ModeTable:
     negative_modes: int
     volume: float | None
     preparation: dict | None
+    store: str | None = None
+    hessian_digest: str | None = None
     centre: np.ndarray | None = None
     shells: Shells | None = None
     transverse: np.ndarray | None = None
@@ -103,7 +105,8 @@ def _empty_table(catalogue, geometry: Geometry | None) -> ModeTable:
         str(catalogue.path), catalogue.units, catalogue.n_atoms, catalogue.frequencies, catalogue.eigenvalues,
         np.empty(catalogue.n_modes), np.empty(catalogue.n_modes), _covered(catalogue), catalogue.complete,
         int(attrs.get("zero_modes", {}).get("count", 0)), int(attrs.get("negative_modes", {}).get("count", 0)),
-        None if box is None else box.volume, attrs.get("preparation"))
+        None if box is None else box.volume, attrs.get("preparation"), attrs.get("store"),
+        attrs.get("hessian_digest"))
 
 
 def scan_catalogue(path, *, shells: int = DEFAULT_SHELLS, profiles: int = DEFAULT_PROFILES,

@@ -129,6 +129,11 @@ def _random_task(seed, stream, k, rows, width) -> np.ndarray:
     return rng.integers(0, 2, size=(rows, width)).astype(float) * 2 - 1
 
 
+#: steps a recursion on dask may run ahead of its inner products (each step's tasks need the previous
+#: step's blocks, so this adds queued tasks, not blocks held in memory)
+LOOKAHEAD = 8
+
+
 class ShardedDynamical:
     """D of ``store`` as an operator on blocked vectors run by ``runner`` (see the module docstring).
 
@@ -172,9 +177,22 @@ class ShardedDynamical:
                                     coefficients, [T[k] for _, T in terms]))
         return out
 
+    @property
+    def lookahead(self) -> int:
+        """How many steps a recursion may submit before collecting their inner products: 0 in this
+        process (tasks run when gathered), :data:`LOOKAHEAD` on dask, where it hides the round trips."""
+        return LOOKAHEAD if self.runner.concurrent else 0
+
     def dots(self, pairs: list) -> np.ndarray:
         """(P, width) column-wise inner products ⟨A, B⟩ of the P pairs (A, B) of blocked vectors."""
-        tasks = [self._submit(k, _dots_task, [[A[k], B[k]] for A, B in pairs]) for k in range(self.n_shards)]
+        return self.collect(self.submit_dots(pairs))
+
+    def submit_dots(self, pairs: list) -> list:
+        """The tasks of :meth:`dots`, to :meth:`collect` later."""
+        return [self._submit(k, _dots_task, [[A[k], B[k]] for A, B in pairs]) for k in range(self.n_shards)]
+
+    def collect(self, tasks: list) -> np.ndarray:
+        """The summed results of :meth:`submit_dots`' tasks, (P, width), in shard order."""
         parts = self.runner.gather(tasks)
         self.runner.release(tasks)
         total = parts[0].copy()

@@ -31,6 +31,10 @@ class Runner(ABC):
     def gather(self, handles: list, stage: str = "", progress: Progress | None = None) -> list:
         """Results of ``handles`` in order; calls ``progress`` as tasks finish; raises a task's error."""
 
+    #: whether submitted tasks run while the caller goes on (dask), so a handle may be released as soon
+    #: as the tasks that need it are submitted; False: tasks run only when gathered (in this process)
+    concurrent = False
+
     @property
     def slots(self) -> int:
         """How many places tasks can be kept apart in (dask workers; 1 in this process)."""
@@ -102,6 +106,8 @@ class LocalRunner(Runner):
 
 class DaskRunner(Runner):
     """Run tasks on a ``distributed.Client``; results stay on the workers until gathered."""
+
+    concurrent = True
 
     def __init__(self, client, retries: int = 2):
         self.client = client

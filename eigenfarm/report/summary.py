@@ -103,9 +103,10 @@ def _class_counts(group: SizeGroup) -> str:
 
 
 def _band_table(group: SizeGroup, shells: int = 4) -> Table:
-    rows = tuple((b.label, b.polarisation, num(b.expected, 3), num(b.modes, 4), "yes" if b.covered else "no",
-                  num(b.frequency), num(b.width, 3), num(b.speed)) for b in group.bands if b.shell < shells)
-    return Table(("shell", "pol.", "modes expected", "weight found", "covered", "median", "lower width",
+    rows = tuple((b.label, b.polarisation, num(b.expected, 3), num(b.modes, 4),
+                  b.source if b.covered else "no", num(b.frequency), num(b.width, 3), num(b.speed))
+                 for b in group.bands if b.shell < shells)
+    return Table(("shell", "pol.", "modes expected", "weight in catalogues", "placed from", "median", "lower width",
                   f"speed ({group.tables[0].units.speed_unit})"), rows)
 
 
@@ -167,7 +168,7 @@ def summary_blocks(analysis: Analysis, figures: dict[str, str], tables: list[str
                   Path(s).name for s in sources[:8]) + (" …" if len(sources) > 8 else "")),
               Heading("Read these numbers with", 2), assumptions(analysis)]
     if analysis.notes:
-        blocks += [Heading("Warnings", 2), Items(tuple(analysis.notes))]
+        blocks += [Heading("Notes and warnings", 2), Items(tuple(analysis.notes))]
     for group in analysis.groups:
         blocks += group_blocks(group, analysis)
     blocks += finite_size_block(analysis)

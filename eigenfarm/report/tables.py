@@ -43,7 +43,7 @@ def _mode_rows(group: SizeGroup):
 def _band_rows(group: SizeGroup):
     for b in group.bands:
         yield (group.n_atoms, b.shell + 1, b.label, b.polarisation, b.k, b.multiplicity, b.expected, b.modes,
-               "yes" if b.covered else "no", b.frequency, b.width, b.speed)
+               "yes" if b.covered else "no", b.source, b.frequency, b.low, b.width, b.speed)
 
 
 def _dos_rows(group: SizeGroup):
@@ -81,7 +81,7 @@ def write_tables(analysis: Analysis, out: Path) -> list[str]:
                        "inverse_participation", "plane_wave_weight", "class", "centre_x", "centre_y", "centre_z"],
          (r for g in groups for r in _mode_rows(g))),
         ("bands.csv", ["n_atoms", "shell", "label", "polarisation", "k", "multiplicity", "modes_expected",
-                       "modes_found", "covered", "frequency", "width", "speed"],
+                       "modes_found", "covered", "source", "frequency", "lower_edge", "width", "speed"],
          (r for g in groups for r in _band_rows(g))),
         ("dos.csv", ["n_atoms", "binning", "lo", "hi", "centre", "density", "density_error", "reduced",
                      "reduced_error", "modes", "debye_density"], (r for g in groups for r in _dos_rows(g))),

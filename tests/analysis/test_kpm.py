@@ -7,7 +7,7 @@ import pytest
 from lattices import bravais_eigenvalues, fcc_allowed_q, fcc_crystal, fcc_neighbours
 
 from eigenfarm.analysis import kpm, shardcache
-from eigenfarm.analysis.sharded import ShardedDynamical
+from eigenfarm.analysis.sharded import LOOKAHEAD, ShardedDynamical
 from eigenfarm.cli import main
 from eigenfarm.farm.cluster import open_client
 from eigenfarm.farm.runner import LocalRunner, runner_for
@@ -227,7 +227,9 @@ def client():
 
 
 def test_inline_and_two_workers_give_identical_estimates(crystal, client):
-    settings = dict(moments=16, probes=4, seed=9, lanczos_steps=6)  # few steps: each is a dask round trip
+    # few steps (each Lanczos step is two dask round trips), enough for the moments to run ahead of
+    # their inner products by more than LOOKAHEAD steps
+    settings = dict(moments=2 * (LOOKAHEAD + 4), probes=4, seed=9, lanczos_steps=6)
     inline = kpm.estimate_density(crystal[0], **settings)
     farmed = kpm.estimate_density(crystal[0], client=client, **settings)
     assert runner_for(client).slots == 2
@@ -237,7 +239,7 @@ def test_inline_and_two_workers_give_identical_estimates(crystal, client):
     assert all(s["entries"] == 0 for s in stats.values())  # each store's shards are dropped at the end
     # every product went through the cache; a worker reads a shard at most once (normally each worker
     # reads only the 2 shards whose tasks keep going to it; work stealing may move a task or two)
-    lookups = 4 + 4 * (farmed.bounds.steps + 8)
+    lookups = 4 + 4 * (farmed.bounds.steps + settings["moments"] // 2)
     assert sum(s["hits"] + s["misses"] for s in stats.values()) == lookups
     assert all(s["misses"] <= 4 for s in stats.values()) and sum(s["misses"] for s in stats.values()) >= 4
 
