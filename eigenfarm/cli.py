@@ -83,6 +83,8 @@ def _analyze_parser(sub) -> None:
                               "lower edge of the first transverse band)")
     analyze.add_argument("--tail-above", type=_non_negative(float), default=0.0, metavar="F",
                          help="lower end of the tail fit (default 0)")
+    analyze.add_argument("--catalogue-bands-only", action="store_true",
+                         help="do not place first bands the catalogues miss from their Hessian stores")
     analyze.add_argument("--fixed-exponent", type=_positive(float), default=4.0, metavar="BETA",
                          help="exponent at which the prefactor is also reported (default 4)")
     analyze.add_argument("--bootstrap", type=_non_negative(int), default=2000, metavar="B",

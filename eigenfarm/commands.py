@@ -240,7 +240,8 @@ def analysis_settings(args):
 
     return Settings(shells=args.shells, chunk_modes=args.chunk_modes, bins=args.bins,
                     rule=ClassRule(args.phonon_weight, args.local_participation), tail_below=args.tail_below,
-                    tail_above=args.tail_above, fixed_exponent=args.fixed_exponent, bootstrap=args.bootstrap,
+                    tail_above=args.tail_above, fixed_exponent=args.fixed_exponent,
+                    store_bands=not args.catalogue_bands_only, bootstrap=args.bootstrap,
                     confidence=args.confidence, seed=args.seed)
 
 
