@@ -94,16 +94,20 @@ def _gib(n) -> str:
 def markdown(r: dict) -> str:
     rows = [("one process (inline)", r["inline"]), (f"dask, {r['workers']} workers", r["dask"])]
     if r["dask_no_cache"]:
-        rows.append((f"dask, {r['workers']} workers, no shard cache ({r['short_moments']} moments)", r["dask_no_cache"]))
+        name = f"dask, {r['workers']} workers, no shard cache ({r['short_moments']} moments)"
+        rows.append((name, r["dask_no_cache"]))
     lines = [f"# KPM density of states at {r['atoms']:,} atoms ({r['n_shards']} shards)", "",
              f"Machine: {r['machine']}  ", f"Date: {r['date']}  ",
-             f"Settings: {r['moments']} moments, {r['probes']} probes (X is 3N × {r['probes']}), seed {r['seed']}", "",
-             "| run | wall | read shards | bounds (Lanczos) | moments | per product D·X | peak memory (sum) | shard cache held |",
+             f"Settings: {r['moments']} moments, {r['probes']} probes (X is 3N × {r['probes']}), "
+             f"seed {r['seed']}", "",
+             "| run | wall | read shards | bounds (Lanczos) | moments | per product D·X | peak memory (sum) "
+             "| shard cache held |",
              "|---|---|---|---|---|---|---|---|"]
     for name, m in rows:
         st = m["stages"]
-        lines.append(f"| {name} | {m['wall_seconds']:.1f} s | {st['read shards']:.1f} s | {st['spectral bounds']:.1f} s "
-                     f"| {st['Chebyshev moments']:.1f} s | {m['seconds_per_product']:.2f} s | {_gib(m['peak_rss_sum_bytes'])} "
+        lines.append(f"| {name} | {m['wall_seconds']:.1f} s | {st['read shards']:.1f} s "
+                     f"| {st['spectral bounds']:.1f} s | {st['Chebyshev moments']:.1f} s "
+                     f"| {m['seconds_per_product']:.2f} s | {_gib(m['peak_rss_sum_bytes'])} "
                      f"| {_gib(m['cache'].get('bytes', 0))} in {m['cache'].get('entries', 0)} entries |")
     lines += ["", f"Inline and dask moments identical: {r['identical_inline_and_dask']}.  Spectrum "
               f"f ∈ [{r['frequency_range'][0]:.3g}, {r['frequency_range'][1]:.3g}]; kernel width mid-spectrum "

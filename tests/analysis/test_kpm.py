@@ -258,7 +258,8 @@ def test_cli_density_writes_its_folder_and_refuses_bad_input(crystal, tmp_path, 
     assert "Assumptions" in summary and "64 Chebyshev moments" in summary
     assert json.loads((out / "density.json").read_text())["probes"] == 4
     capsys.readouterr()
-    for bad in (args, args[:-2] + ["1", "--inline"], ["density", str(tmp_path / "none.zarr"), "--out", str(tmp_path / "x")]):
+    missing = ["density", str(tmp_path / "none.zarr"), "--out", str(tmp_path / "x")]
+    for bad in (args, args[:-2] + ["1", "--inline"], missing):  # exists; 1 probe; no such store
         assert main(bad) == 2
         err = capsys.readouterr().err.strip().splitlines()
         assert len(err) == 1 and err[0].startswith("eigenfarm: error: ")
