@@ -41,6 +41,12 @@ from eigenfarm.solve.backends.common import check_factor, check_shift, shifted
 #: how to install the optional dependency (shown when it is missing)
 INSTALL_HINT = ("run 'make slepc' in the eigenfarm checkout (Debian's libopenmpi-dev libmumps-dev "
                 "libscalapack-openmpi-dev, then pip install 'eigenfarm[slepc]'; see docs/parallel-solves.md)")
+#: MUMPS ICNTL(14) workspace margins (per cent over the analysis estimate) tried in turn
+WORKSPACE_MARGINS = (20, 60, 150)
+#: MUMPS INFOG(1) codes meaning "a workspace was too small" (MUMPS user guide, INFO(1) −8, −9, −11, −14
+#: — from memory)
+WORKSPACE_SHORT = (-8, -9, -11, -14)
+
 #: MUMPS ICNTL(7) sequential orderings by name (MUMPS user guide, ICNTL(7))
 ORDERINGS = {"auto": 7, "amd": 0, "amf": 2, "scotch": 3, "pord": 4, "metis": 5, "qamd": 6}
 
@@ -166,19 +172,32 @@ class SlepcBackend(Backend):
         return factor
 
     def _factored(self, A, sigma: float):
-        """A KSP holding the MUMPS factor of the PETSc matrix A = D − σI."""
+        """A KSP holding the MUMPS factor of the PETSc matrix A = D − σI.  MUMPS's workspace estimate can
+        fall short with several ranks (INFOG(1) = −9, measured at 108,000 atoms on 2 ranks with the
+        default ICNTL(14) = 20 %): the factorisation is then repeated with a larger margin."""
         PETSc, _ = require()
         A.setOption(PETSc.Mat.Option.SYMMETRIC, True)
-        ksp = PETSc.KSP().create(A.getComm())
-        ksp.setOperators(A)
-        configure_mumps(ksp, self.null_pivot)
-        ksp.getPC().getFactorMatrix().setMumpsIcntl(7, ORDERINGS[self.ordering])
-        try:
-            ksp.setUp()
-        except PETSc.Error as exc:
-            raise InputError(f"slepc backend: MUMPS could not factor D − σI at σ = {sigma!r} (INFOG(1) = "
-                             f"{ksp.getPC().getFactorMatrix().getMumpsInfog(1)}): {exc}") from None
-        return ksp
+        for margin in WORKSPACE_MARGINS:
+            ksp = PETSc.KSP().create(A.getComm())
+            ksp.setOperators(A)
+            configure_mumps(ksp, self.null_pivot)
+            factor = ksp.getPC().getFactorMatrix()
+            factor.setMumpsIcntl(7, ORDERINGS[self.ordering])
+            factor.setMumpsIcntl(14, margin)
+            error = None
+            try:
+                ksp.setUp()
+            except PETSc.Error as exc:
+                error = exc
+            status = int(ksp.getPC().getFactorMatrix().getMumpsInfog(1))
+            if status == 0 and error is None:
+                return ksp
+            ksp.destroy()
+            if status not in WORKSPACE_SHORT:
+                break
+        short = f", workspace still short at ICNTL(14) = {margin} %" if status in WORKSPACE_SHORT else ""
+        raise InputError(f"slepc backend: MUMPS could not factor D − σI at σ = {sigma!r} "
+                         f"(INFOG(1) = {status}{short})" + (f": {error}" if error else ""))
 
     def describe(self) -> dict:
         return {"backend": self.name, "method": "MUMPS LDLᵀ (SYM = 2) through PETSc, ICNTL(13) = 1, ICNTL(24) = 1",
