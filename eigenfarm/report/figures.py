@@ -29,6 +29,13 @@ def _save(fig, stem: Path) -> str:
     return stem.name
 
 
+def _finish(fig, ax, stem: Path, legend_size: int = 7, **settings) -> str:
+    """Apply the axis ``settings`` (scales, labels, title), draw the legend and save both files."""
+    ax.set(**settings)
+    ax.legend(fontsize=legend_size)
+    return _save(fig, stem)
+
+
 def _label(group: SizeGroup) -> str:
     return f"N = {group.n_atoms} ({group.n_samples} sample{'s' if group.n_samples > 1 else ''})"
 
@@ -55,10 +62,8 @@ def dos_loglog(analysis: Analysis, stem: Path) -> str:
                     label=f"tail fit β = {beta:.2f} (f ≤ {group.cutoff:.3g})")
         if group.speeds is not None and group.speeds.debye_frequency is not None:
             ax.plot(f, group.speeds.debye_density(f), "--", color=colour, lw=1, label="Debye 3f²/f_D³")
-    ax.set(xscale="log", yscale="log", xlabel=_freq_label(analysis), ylabel="D(f) per dof",
-           title="Density of states (harmonic, T = 0, zero modes excluded)")
-    ax.legend(fontsize=7)
-    return _save(fig, stem)
+    return _finish(fig, ax, stem, xscale="log", yscale="log", xlabel=_freq_label(analysis), ylabel="D(f) per dof",
+                   title="Density of states (harmonic, T = 0, zero modes excluded)")
 
 
 def dos_reduced(analysis: Analysis, stem: Path) -> str:
@@ -71,9 +76,7 @@ def dos_reduced(analysis: Analysis, stem: Path) -> str:
                     color=f"C{index}", label=_label(group))
         if group.speeds is not None and group.speeds.debye_frequency is not None:
             ax.axhline(3 / group.speeds.debye_frequency**3, ls="--", color=f"C{index}", lw=1, label="Debye level")
-    ax.set(xlabel=_freq_label(analysis), ylabel="D(f) / f²", title="Reduced density of states")
-    ax.legend(fontsize=7)
-    return _save(fig, stem)
+    return _finish(fig, ax, stem, xlabel=_freq_label(analysis), ylabel="D(f) / f²", title="Reduced density of states")
 
 
 def cumulative(analysis: Analysis, stem: Path) -> str:
@@ -86,10 +89,8 @@ def cumulative(analysis: Analysis, stem: Path) -> str:
             beta, a = group.tail.exponent.value, group.tail.prefactor.value
             x = np.geomspace(f[0], group.cutoff, 50)
             ax.plot(x, a * x ** (beta + 1) / (beta + 1), ":", color=f"C{index}", label="tail fit, integrated")
-    ax.set(xscale="log", yscale="log", xlabel=_freq_label(analysis), ylabel="modes ≤ f per dof",
-           title="Cumulative count")
-    ax.legend(fontsize=7)
-    return _save(fig, stem)
+    return _finish(fig, ax, stem, xscale="log", yscale="log", xlabel=_freq_label(analysis),
+                   ylabel="modes ≤ f per dof", title="Cumulative count")
 
 
 def participation(analysis: Analysis, stem: Path) -> str:
@@ -103,10 +104,8 @@ def participation(analysis: Analysis, stem: Path) -> str:
     for group in analysis.groups:
         if group.cutoff:
             ax.axvline(group.cutoff, color="0.3", ls=":", lw=1)
-    ax.set(yscale="log", xlabel=_freq_label(analysis), ylabel="participation ratio P",
-           title="Localization by class (dotted: tail cutoff)")
-    ax.legend(fontsize=7)
-    return _save(fig, stem)
+    return _finish(fig, ax, stem, yscale="log", xlabel=_freq_label(analysis), ylabel="participation ratio P",
+                   title="Localization by class (dotted: tail cutoff)")
 
 
 def lowest_mode(analysis: Analysis, stem: Path) -> str | None:
@@ -120,9 +119,8 @@ def lowest_mode(analysis: Analysis, stem: Path) -> str | None:
         ax.step(check.grid, check.observed, where="post", color=f"C{index}", label=f"{_label(group)} observed")
         ax.plot(check.grid, check.predicted, "--", color=f"C{index}",
                 label=f"pure tail, KS p ≈ {check.ks_pvalue:.2g}")
-    ax.set(xlabel=_freq_label(analysis), ylabel="P(f_min > x)", title="Lowest mode of each sample")
-    ax.legend(fontsize=7)
-    return _save(fig, stem)
+    return _finish(fig, ax, stem, xlabel=_freq_label(analysis), ylabel="P(f_min > x)",
+                   title="Lowest mode of each sample")
 
 
 def profiles(analysis: Analysis, stem: Path, most: int = 6) -> str | None:
@@ -135,10 +133,9 @@ def profiles(analysis: Analysis, stem: Path, most: int = 6) -> str | None:
     for p, table, mode, prof in kept:
         ax.plot(prof.radius, prof.weight, "o-", ms=3, lw=0.8,
                 label=f"f = {table.frequency[mode]:.3g}, P = {p:.3g} ({Path(table.path).name} #{mode})")
-    ax.set(yscale="log", xlabel=f"distance from centre ({analysis.units.length})", ylabel="mean |e_a|²",
-           title="Radial decay of the most localized modes")
-    ax.legend(fontsize=6)
-    return _save(fig, stem)
+    return _finish(fig, ax, stem, legend_size=6, yscale="log",
+                   xlabel=f"distance from centre ({analysis.units.length})", ylabel="mean |e_a|²",
+                   title="Radial decay of the most localized modes")
 
 
 def _errorbar_rows(ax, x, rows, key, **style):
@@ -191,10 +188,8 @@ def bands(analysis: Analysis, stem: Path) -> str | None:
                 ax.errorbar([b.k for b in chosen], [b.frequency for b in chosen], yerr=[b.width for b in chosen],
                             fmt=marker, mfc="none" if pol == "L" else None, color=f"C{index}",
                             label=f"{_label(group)} {pol}")
-    ax.set(xlabel=f"|k| (1/{analysis.units.length})", ylabel=_freq_label(analysis),
-           title="Plane-wave bands (covered ones; bars: width)")
-    ax.legend(fontsize=7)
-    return _save(fig, stem)
+    return _finish(fig, ax, stem, xlabel=f"|k| (1/{analysis.units.length})", ylabel=_freq_label(analysis),
+                   title="Plane-wave bands (covered ones; bars: width)")
 
 
 ALL = (("dos-loglog", dos_loglog), ("dos-reduced", dos_reduced), ("cumulative", cumulative),
