@@ -129,9 +129,3 @@ class Projector:
         per_shell[shells.shell, np.arange(len(shells.k))] = 1.0
         return (total - longitudinal) @ per_shell.T, longitudinal @ per_shell.T
 
-
-def shell_weights(vectors: np.ndarray, positions: np.ndarray, masses: np.ndarray,
-                  shells: Shells) -> tuple[np.ndarray, np.ndarray]:
-    """Transverse and longitudinal weights (b, n_shells) of ``vectors`` (b, 3N) on ``shells``, for atoms at
-    ``positions`` (N, 3) with ``masses`` (N,) — a one-off :class:`Projector`."""
-    return Projector(positions, masses, shells, cache_bytes=0).weights(vectors)
