@@ -5,8 +5,11 @@ Every rank runs the same code (single program, multiple data).  Per store:
 1. rank 0 opens the job (store validation, destination check, work folder, a saved plan to resume);
 2. every rank reads only its own shards of the store into the distributed D
    (:class:`eigenfarm.solve.sharded.ShardedMatrix`);
-3. unless resumed, the plan is made as in the dask job (:func:`eigenfarm.farm.solvejob.plan_slices`),
-   each count one collective MUMPS factorisation with inertia; λ_max by Krylov–Schur;
+3. unless resumed, the plan is made as in the dask job: λ_max by Krylov–Schur; ``--lowest K`` with
+   K ≤ 200 first in one Krylov–Schur pass from below the spectrum, proved complete by one count
+   (:func:`eigenfarm.solve.slicer.solve_lowest` — two factorisations in all), otherwise slices
+   (:func:`eigenfarm.farm.solvejob.plan_slices`), each count one collective MUMPS factorisation with
+   inertia;
 4. each unfinished slice is solved collectively (:mod:`eigenfarm.solve.slepc_slices`, ``krylov-schur``
    or ``interval``); its vectors are gathered to rank 0, which saves the part in the work folder;
 5. rank 0 merges the parts into the catalogue with the same code as the dask job
@@ -28,6 +31,7 @@ from pathlib import Path
 from eigenfarm.errors import ConvergenceError, InputError
 from eigenfarm.farm import solvejob
 from eigenfarm.farm.tasks import count_near, save_slice
+from eigenfarm.plan.slicing import plan_one_pass
 from eigenfarm.solve.backends.slepc import SlepcBackend, require
 from eigenfarm.solve.slicer import IncompleteSlice
 
@@ -103,13 +107,41 @@ def _open(store: str, out, request, overwrite: bool):
     return work, info, handle.units, work.plan, work.finished()
 
 
-def _plan(D, backend: SlepcBackend, request, units):
-    from eigenfarm.solve.slepc_slices import largest_eigenvalue
-
-    scale = largest_eigenvalue(D)
+def _slices(D, backend: SlepcBackend, request, units, scale: float):
     count = lambda shifts: [count_near(lambda s: backend.count_below(D, s), float(shift), "D")  # noqa: E731
                             for shift in shifts]
     return solvejob.plan_slices(count, scale, request, units, D.layout.n)
+
+
+def _one_pass(D, backend: SlepcBackend, request, scale: float):
+    """``--lowest K`` (K ≤ ONE_PASS_MAX) in one Krylov–Schur pass from below the spectrum, proved by one
+    count (:func:`eigenfarm.solve.slicer.solve_lowest`): (plan, its one slice's result) or None when
+    the proof fails and the job slices instead."""
+    from eigenfarm.solve.slepc_slices import KrylovSchurEngine
+    from eigenfarm.solve.slicer import solve_lowest
+
+    if request.lowest is None or request.lowest > solvejob.ONE_PASS_MAX:
+        return None
+    found = solve_lowest(D, backend, request.lowest, scale, request.zero_tol, request.lanczos, KrylovSchurEngine())
+    if found is None:
+        return None
+    return plan_one_pass(scale, request.zero_tol, request.lowest, found.check, found.count, found.n_zero), found.modes
+
+
+def _plan(D, backend: SlepcBackend, request, units, work):
+    """The plan (saved on rank 0): one pass for a small ``--lowest``, slices otherwise."""
+    from eigenfarm.solve.slepc_slices import largest_eigenvalue
+
+    started = time.perf_counter()
+    scale = _agreed(largest_eigenvalue, D)
+    one_pass = _agreed(_one_pass, D, backend, request, scale)
+    if one_pass is None:
+        plan = _agreed(_slices, D, backend, request, units, scale)
+    else:
+        plan, modes = one_pass
+        _agreed(save_slice, work.save_part, D.original_index, plan.slices[0], modes, started, root_only=True)
+    _agreed(work.save_plan, plan, root_only=True)
+    return plan
 
 
 def solve_store(store: str, out, request, overwrite: bool = False, notice=print, progress=None) -> Path:
@@ -124,8 +156,8 @@ def solve_store(store: str, out, request, overwrite: bool = False, notice=print,
     D = _agreed(ShardedMatrix.assemble, *_agreed(local_rows, store))
     backend = _agreed(SlepcBackend)
     if plan is None:
-        plan = _agreed(_plan, D, backend, request, units)
-        _agreed(work.save_plan, plan, root_only=True)
+        plan = _plan(D, backend, request, units, work)
+        done = _agreed(work.finished, root_only=True)
     _agreed(solvejob.census_notice, plan, info, request, store, notice, root_only=True)
     todo = [piece for piece in plan.slices if piece.index not in done]
     for number, piece in enumerate(todo, 1):

@@ -20,7 +20,7 @@ from eigenfarm.catalogue.writer import check_destination
 from eigenfarm.errors import InputError
 from eigenfarm.farm import tasks
 from eigenfarm.farm.runner import Runner
-from eigenfarm.plan.slicing import Plan, Slice, plan_lowest, plan_window
+from eigenfarm.plan.slicing import Plan, plan_lowest, plan_one_pass, plan_window
 from eigenfarm.solve.dynamical import trivial_zero_modes
 from eigenfarm.solve.slicer import LanczosSettings
 from eigenfarm.store import open_store
@@ -102,10 +102,7 @@ def _one_pass(runner: Runner, store: str, request: SolveRequest, scale: float, w
                                          request.zero_tol, request.lanczos, work.save_part)])[0]
     if found is None:
         return None
-    tau = request.zero_tol * scale
-    piece = Slice(0, tau, found["check"], found["count"] - found["n_zero"])
-    return Plan(tau, found["check"], [piece], scale, request.zero_tol, 0, found["n_zero"], found["n_zero"],
-                {"lowest": request.lowest, "one_pass": True}, keep=request.lowest)
+    return plan_one_pass(scale, request.zero_tol, request.lowest, found["check"], found["count"], found["n_zero"])
 
 
 def open_job(store, out, request: SolveRequest, overwrite: bool) -> tuple[WorkFolder, dict, object]:

@@ -10,7 +10,7 @@ import time
 from collections import OrderedDict
 
 
-from eigenfarm.plan.slicing import Slice
+from eigenfarm.plan.slicing import Slice, plan_one_pass
 from eigenfarm.solve.backend import SingularShift
 from eigenfarm.solve.backends import get_backend
 from eigenfarm.solve.dynamical import largest_eigenvalue, load_dynamical, to_input_order
@@ -82,7 +82,6 @@ def lowest_task(path: str, backend: str, k: int, scale: float, zero_tol: float, 
     found = solve_lowest(D, get_backend(backend), k, scale, zero_tol, settings)
     if found is None:
         return None
-    tau = zero_tol * scale
-    piece = Slice(0, tau, found.check, found.count - found.n_zero)
+    piece = plan_one_pass(scale, zero_tol, k, found.check, found.count, found.n_zero).slices[0]
     return {"check": found.check, "count": found.count, "n_zero": found.n_zero,
             "record": save_slice(save, opened(path)[1], piece, found.modes, started)}

@@ -148,6 +148,16 @@ def plan_lowest(counter: Counter, scale: float, k: int, target: int, zero_tol: f
                 {"lowest": k}, keep=k)
 
 
+def plan_one_pass(scale: float, zero_tol: float, k: int, check: float, count: int, n_zero: int) -> Plan:
+    """The plan of a ``--lowest k`` solved in one pass from below the spectrum
+    (:func:`eigenfarm.solve.slicer.solve_lowest`): one slice (τ, σ_c] holding the count − n_zero modes
+    found above the zero band, proved by the count N(σ_c) = ``count``; no negative modes (the pass
+    gives up when it meets one)."""
+    tau = zero_tol * scale
+    piece = Slice(0, tau, check, count - n_zero)
+    return Plan(tau, check, [piece], scale, zero_tol, 0, n_zero, n_zero, {"lowest": k, "one_pass": True}, keep=k)
+
+
 def _bracket_kth(counter: Counter, tau: float, scale: float, base: int, k: int) -> tuple[float, int]:
     """A shift hi with k ≤ N(hi) − base, not far above: Debye-law extrapolation from probe counts
     (N ∝ λ^{3/2}), then geometric bisection while more than 2k modes lie below."""

@@ -76,29 +76,61 @@ def _local(vectors: list, rows: int) -> np.ndarray:
     return np.column_stack([v.getArray(readonly=True).copy() for v in vectors])
 
 
-def _krylov_schur_runs(D: ShardedMatrix, factor, keep, expected: int, settings: LanczosSettings):
-    """Krylov–Schur runs on (D − σI)⁻¹, each deflating what earlier runs found, until ``expected``
-    kept pairs are in or the reruns run out; returns (values, Vecs, runs)."""
+def _vecs(D: ShardedMatrix, block: np.ndarray | None) -> list:
+    """The columns of a local block (local, m) as distributed PETSc Vecs."""
+    if block is None:
+        return []
+    vecs = []
+    for column in block.T:
+        vec = D.layout.vector()
+        vec.setArray(np.ascontiguousarray(column))
+        vecs.append(vec)
+    return vecs
+
+
+def _krylov_schur_runs(D: ShardedMatrix, factor, keep, missing, settings: LanczosSettings,
+                       known: np.ndarray | None = None):
+    """Krylov–Schur runs on (D − σI)⁻¹, each deflating ``known`` (a local block of orthonormal vectors)
+    and what earlier runs found, until ``missing(values)`` is 0 or the reruns run out; returns
+    (values (m,) ascending, this rank's rows of their vectors (local, m), runs)."""
     PETSc, SLEPc = require()
     n, local = D.layout.n, D.layout.local
     op = PETSc.Mat().createPython(((local, n), (local, n)), context=_Inverse(factor), comm=D.layout.comm)
     op.setUp()
+    fixed = _vecs(D, known)
     values, vectors, runs = np.zeros(0), [], 0
-    while len(values) < expected and runs <= settings.max_restarts:
-        k = min(expected - len(values) + settings.extra, n - 1 - len(vectors))
+    while missing(values) > 0 and runs <= settings.max_restarts:
+        k = min(missing(values) + settings.extra, n - 1 - len(vectors) - len(fixed))
         eps = _eps(op, settings.tol)
         eps.setWhichEigenpairs(SLEPc.EPS.Which.LARGEST_MAGNITUDE)
         eps.setDimensions(nev=k, ncv=min(n, max(settings.ncv or max(2 * k + 1, 20), k + 1)))
-        if vectors:
-            eps.setDeflationSpace(vectors)
+        if fixed or vectors:
+            eps.setDeflationSpace(fixed + vectors)
         eps.solve()
         runs += 1
         theta, found = _pairs(eps, D)
+        eps.destroy()
         lam = factor.sigma + 1.0 / np.where(np.abs(theta) > 1e-300, theta, np.inf)
         wanted = np.flatnonzero(keep(lam) & (np.abs(theta) > 1e-300))
         values = np.concatenate([values, lam[wanted]])
         vectors += [found[i] for i in wanted]
-    return values, vectors, runs
+    op.destroy()
+    order = np.argsort(values, kind="stable")
+    return values[order], _local([vectors[i] for i in order], local), runs
+
+
+class KrylovSchurEngine:
+    """The Krylov solves of the one-pass lowest-K proof (:func:`eigenfarm.solve.slicer.solve_lowest`)
+    for a D on MPI ranks: vectors are this rank's rows, the values are on every rank."""
+
+    def accumulate(self, D: ShardedMatrix, factor, keep, missing, settings: LanczosSettings,
+                   known: np.ndarray | None = None):
+        return _krylov_schur_runs(D, factor, keep, missing, settings, known)
+
+    def result(self, D: ShardedMatrix, values, block, scale, stats) -> SliceResult:
+        """Rayleigh–Ritz on the pairs, relative residuals; vectors gathered to rank 0 (store order)."""
+        values, block = _rayleigh_ritz(D, block)
+        return _gathered(D, values, block, scale, stats)
 
 
 def _rayleigh_ritz(D: ShardedMatrix, block: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -115,7 +147,11 @@ def _finish(D: ShardedMatrix, values: np.ndarray, block: np.ndarray, lo, hi, exp
             stats: dict) -> SliceResult:
     """Rayleigh–Ritz, the ``expected`` pairs inside the slice, residuals; vectors gathered to rank 0."""
     values, block = _rayleigh_ritz(D, block)
-    values, block = best_in_slice(values, block, expected, lo, hi, sigma)
+    return _gathered(D, *best_in_slice(values, block, expected, lo, hi, sigma), scale, stats)
+
+
+def _gathered(D: ShardedMatrix, values: np.ndarray, block: np.ndarray, scale: float, stats: dict) -> SliceResult:
+    """Relative residuals ‖D e − λ e‖ / (λ_max ‖e‖) of the pairs; their vectors gathered to rank 0."""
     residual = D.times_local(block) - block * values
     residuals = np.sqrt(D.allsum((residual**2).sum(axis=0))) / scale
     return SliceResult(values, D.layout.at_root(block), residuals, stats)
@@ -129,13 +165,13 @@ def krylov_schur_slice(D: ShardedMatrix, backend: SlepcBackend, lo: float, hi: f
         return _empty(D)
     factor = factor_near(backend, D, lo, hi)
     keep = lambda lam: in_slice(lam, lo, hi, 1e-10 * scale)  # noqa: E731
-    values, vectors, runs = _krylov_schur_runs(D, factor, keep, expected, settings)
+    values, block, runs = _krylov_schur_runs(D, factor, keep, lambda found: expected - len(found), settings)
     if len(values) < expected:
         raise IncompleteSlice(f"slice ({lo:.6g}, {hi:.6g}]: found {len(values)} of {expected} eigenpairs "
                               f"after {runs} Krylov–Schur runs")
     stats = {"shift": factor.sigma, "runs": runs, "method": "krylov-schur",
              **{f"factor_{k}": v for k, v in factor.stats.items()}}
-    return _finish(D, values, _local(vectors, D.layout.local), lo, hi, expected, factor.sigma, scale, stats)
+    return _finish(D, values, block, lo, hi, expected, factor.sigma, scale, stats)
 
 
 def interval_slice(D: ShardedMatrix, backend: SlepcBackend, lo: float, hi: float, expected: int, scale: float,
@@ -156,6 +192,7 @@ def interval_slice(D: ShardedMatrix, backend: SlepcBackend, lo: float, hi: float
         raise IncompleteSlice(f"slice ({lo:.6g}, {hi:.6g}]: SLEPc spectrum slicing returned {len(values)} "
                               f"eigenpairs where inertia counts {expected}")
     shifts, inertias = eps.getKrylovSchurInertias()
+    eps.destroy()
     stats = {"shift": 0.5 * (lo + hi), "runs": 1, "method": "interval",
              "inertia_shifts": [float(s) for s in shifts], "inertia_counts": [int(c) for c in inertias]}
     return _finish(D, values, _local(vectors, D.layout.local), lo, hi, expected, 0.5 * (lo + hi), scale, stats)

@@ -104,6 +104,23 @@ def _result(D, values, vectors, scale, stats) -> SliceResult:
     return SliceResult(values, vectors, residuals, stats)
 
 
+class ArpackEngine:
+    """Finds eigenpairs near a factored shift of a D held whole in this process (scipy/ARPACK).
+
+    The one-pass lowest-K solve (:func:`solve_lowest`) is written against this small interface, so the
+    same proof runs on MPI ranks with SLEPc's Krylov–Schur
+    (:class:`eigenfarm.solve.slepc_slices.KrylovSchurEngine`)."""
+
+    def accumulate(self, D, factor, keep, missing, settings: LanczosSettings, known: np.ndarray | None = None):
+        """Deflated runs on (D − σI)⁻¹ (``known`` (n, f) orthonormal vectors projected out) until
+        ``missing(values)`` is 0: (values (m,) ascending, vectors (n, m), runs)."""
+        return _accumulate(D, factor if known is None else _Deflated(factor, known), keep, missing, settings)
+
+    def result(self, D, values, vectors, scale, stats) -> SliceResult:
+        """The pairs with relative residuals ‖D e − λ e‖ / (λ_max ‖e‖)."""
+        return _result(D, values, vectors, scale, stats)
+
+
 def solve_slice(D: sp.spmatrix, backend: Backend, lo: float, hi: float, expected: int, scale: float,
                 settings: LanczosSettings = LanczosSettings()) -> SliceResult:
     """The ``expected`` eigenpairs of D with lo < λ ≤ hi.
@@ -138,15 +155,16 @@ class LowestResult:
     n_zero: int
 
 
-def solve_lowest(D: sp.spmatrix, backend: Backend, k: int, scale: float, zero_tol: float,
-                 settings: LanczosSettings = LanczosSettings()) -> LowestResult | None:
+def solve_lowest(D, backend: Backend, k: int, scale: float, zero_tol: float,
+                 settings: LanczosSettings = LanczosSettings(), engine=ArpackEngine()) -> LowestResult | None:
     """The k lowest modes above the zero band |λ| ≤ τ = zero_tol·scale, in one Lanczos pass.
 
     D − σI is factored at σ = −100τ, below the spectrum of a stable configuration (positive definite,
     so CHOLMOD can do it); shift-invert Lanczos then finds the eigenvalues from the bottom up.  The
     result is *proved* complete by one inertia count at σ_c, halfway between the last kept mode and the
     next: N(σ_c) must equal the number found below σ_c.  Returns None when that proof fails or the
-    factorisation shows negative eigenvalues; the caller then slices the window instead.
+    factorisation shows negative eigenvalues; the caller then slices the window instead.  ``engine``
+    runs the Krylov solves: :class:`ArpackEngine` for a scipy D, the SLEPc one for a D on MPI ranks.
     """
     tau = zero_tol * scale
     factor = backend.factor(D, -100 * tau)
@@ -162,7 +180,7 @@ def solve_lowest(D: sp.spmatrix, backend: Backend, k: int, scale: float, zero_to
         return 0 if (physical > physical[k - 1] + level).any() else 1
 
     everything = lambda lam: np.ones(len(lam), bool)  # noqa: E731 (from below, all Ritz values are wanted)
-    values, vectors, runs = _accumulate(D, factor, everything, missing, settings)
+    values, vectors, runs = engine.accumulate(D, factor, everything, missing, settings)
     for _ in range(settings.max_restarts):
         if missing(values):
             return None
@@ -176,15 +194,15 @@ def solve_lowest(D: sp.spmatrix, backend: Backend, k: int, scale: float, zero_to
         if short <= 0:
             break
         # Lanczos missed members of a (degenerate) level below σ_c: deflate what we have, find the rest
-        more, extra, more_runs = _accumulate(D, _Deflated(factor, vectors), everything,
-                                             lambda found: short - len(found), settings)
+        more, extra, more_runs = engine.accumulate(D, factor, everything, lambda found: short - len(found),
+                                                   settings, known=vectors)
         values, vectors, runs = _merge_sorted(values, vectors, more, extra, runs + more_runs)
     if short != 0:
         return None
     chosen = np.flatnonzero(physical)[:keep]
     stats = {"shift": factor.sigma, "runs": runs, "check_shift": check, "check_count": count,
              **{f"factor_{key}": v for key, v in factor.stats.items()}}
-    return LowestResult(_result(D, values[chosen], vectors[:, chosen], scale, stats), check, count, n_zero)
+    return LowestResult(engine.result(D, values[chosen], vectors[:, chosen], scale, stats), check, count, n_zero)
 
 
 class _Deflated:

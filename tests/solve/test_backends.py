@@ -257,8 +257,37 @@ def test_auto_uses_dense_for_small_and_superlu_for_large_matrices(glass):
     D, values = glass
     sigma = 0.5 * (values[100] + values[101])
     assert get_backend("auto").factor(D, sigma).stats["backend"] == "dense"
-    factor = get_backend("auto", dense_max_n=100).factor(D, sigma)
+    factor = get_backend("auto", dense_max_n=100, use_mumps=False).factor(D, sigma)
     assert factor.stats["backend"] == "superlu" and factor.inertia().below == 101
+
+
+@needs_slepc
+def test_auto_counts_with_mumps_when_petsc_is_installed(glass):
+    # the count is exact by Sylvester's law of inertia; the reference is dense LAPACK (numpy eigvalsh)
+    D, values = glass
+    auto = get_backend("auto", dense_max_n=100)
+    assert auto.describe()["mumps_for_other_shifts"] is True
+    for sigma in (0.5 * (values[100] + values[101]), 0.5 * (values[-3] + values[-2])):
+        factor = auto.factor(D, sigma)
+        assert factor.stats["backend"] == "slepc" and factor.inertia().below == count_below(values, sigma)
+        b = np.random.default_rng(1).standard_normal(D.shape[0])
+        x = factor.solve(b)
+        assert np.linalg.norm(D @ x - sigma * x - b) <= 1e-9 * np.linalg.norm(b)
+
+
+def test_auto_falls_back_to_superlu_when_mumps_fails(glass, monkeypatch):
+    D, values = glass
+    auto = get_backend("auto", dense_max_n=100, use_mumps=False)
+
+    class Broken:
+        def factor(self, D, sigma):
+            raise InputError("backend 'slepc': PETSc/SLEPc do not load (libmpi.so.40: cannot open)")
+
+    auto.mumps = Broken()
+    sigma = 0.5 * (values[100] + values[101])
+    factor = auto.factor(D, sigma)
+    assert factor.stats["backend"] == "superlu" and factor.stats["tried"].startswith("slepc: backend 'slepc'")
+    assert factor.inertia().below == 101
 
 
 @needs_cholmod
@@ -269,7 +298,7 @@ def test_auto_tries_cholmod_for_negative_shifts_and_counts_negative_eigenvalues(
     assert factor.stats["backend"] == "cholmod" and factor.inertia().below == 0
     unstable = (D - 2.0 * sp.eye(D.shape[0])).tocsr()  # eigenvalues λ − 2: not a minimum any more
     factor = auto.factor(unstable, -0.5)
-    assert factor.stats["backend"] == "superlu" and factor.stats["tried"].startswith("cholmod")
+    assert factor.stats["backend"] in ("superlu", "slepc") and factor.stats["tried"].startswith("cholmod")
     assert factor.inertia().below == count_below(values - 2.0, -0.5) > 0
 
 

@@ -20,6 +20,7 @@ from test_modes_physics import levels, solve
 from eigenfarm.catalogue import open_catalogue
 from eigenfarm.cli import main
 from eigenfarm.errors import InputError
+from eigenfarm.farm import solvejob
 from eigenfarm.samples.prepare import Recipe, make_sample
 from eigenfarm.samples.scenario import demo_potential
 from eigenfarm.solve.backends import get_backend, slepc
@@ -78,14 +79,33 @@ def test_window_on_two_ranks_matches_dense_eigh_and_scipy(glass, tmp_path, metho
         assert all(r["factor_ranks"] == 2 and 0 < (w < r["shift"]).sum() < len(w) for r in runs)
 
 
-def test_lowest_on_two_ranks_matches_dense_eigh(glass, tmp_path):
+@pytest.mark.parametrize("k", [20, 201])  # 20: one Krylov–Schur pass; 201 > ONE_PASS_MAX: sliced
+def test_lowest_on_two_ranks_matches_dense_eigh(glass, tmp_path, k):
     path, w, U = glass
-    done = on_two_ranks(path, "--out", tmp_path / "m.zarr", "--lowest", 20, "--backend", "slepc", "--slice-modes", 8)
+    done = on_two_ranks(path, "--out", tmp_path / "m.zarr", "--lowest", k, "--backend", "slepc", "--slice-modes", 40)
     assert done.returncode == 0, done.stderr
     cat = open_catalogue(tmp_path / "m.zarr")
-    np.testing.assert_allclose(cat.eigenvalues[:20], w[3:23], rtol=1e-9)  # numpy.linalg.eigh; 3 translations out
+    np.testing.assert_allclose(cat.eigenvalues[:k], w[3:3 + k], rtol=1e-9)  # numpy.linalg.eigh; 3 translations out
     assert cat.complete and cat.attrs["zero_modes"]["count"] == 3
     assert subspace_gap(cat, U[:, 3:3 + cat.n_modes]) < 1e-8
+    assert bool(cat.attrs["request"].get("one_pass")) == (k <= solvejob.ONE_PASS_MAX)
+    if k <= solvejob.ONE_PASS_MAX:  # two factorisations: below the spectrum, and the proving count
+        run, = [s["run"] for s in cat.attrs["slices"]]
+        assert run["factor_ranks"] == 2 and run["check_count"] == 3 + cat.n_modes
+
+
+def test_lowest_in_one_pass_on_two_ranks_completes_a_degenerate_level(tmp_path):
+    # FCC spring crystal, 4³ cells: the 30 lowest non-trivial modes end inside the 16-fold second level
+    # (levels 24, 16 from Ashcroft & Mermin eq. 22.58 on the box's wavevectors), so 40 are kept; a
+    # Krylov–Schur run misses members of such levels, which the proving count exposes
+    config, potential = fcc_crystal(4)
+    build_store(config, potential, tmp_path / "H.zarr", shard_atoms=64)
+    ref = bravais_eigenvalues(fcc_allowed_q(4), fcc_neighbours())[3:43]
+    done = on_two_ranks(tmp_path / "H.zarr", "--out", tmp_path / "m.zarr", "--lowest", 30, "--backend", "slepc")
+    assert done.returncode == 0, done.stderr
+    cat = open_catalogue(tmp_path / "m.zarr")
+    assert cat.attrs["request"].get("one_pass") and cat.complete and cat.n_modes == 40
+    np.testing.assert_allclose(cat.eigenvalues, ref, rtol=1e-9)
 
 
 def test_degenerate_fcc_shells_on_two_ranks(tmp_path):

@@ -7,7 +7,7 @@ dense      yes               yes                 LAPACK Bunch–Kaufman LDLᵀ (
 superlu    yes               yes                 SuperLU symmetric mode (LDLᵀ), METIS ordering
 cholmod    no (one bit)      no                  CHOLMOD supernodal Cholesky (optional install)
 slepc      yes               yes                 MUMPS LDLᵀ through PETSc, also on MPI ranks (optional)
-auto       yes               yes                 dense / cholmod (σ < 0) / superlu by n and σ
+auto       yes               yes                 dense / cholmod (σ < 0) / mumps or superlu
 =========  ================  ==================  ===============================================
 
 Example::

@@ -41,8 +41,11 @@ from eigenfarm.solve.backends.common import check_factor, check_shift, shifted
 #: how to install the optional dependency (shown when it is missing)
 INSTALL_HINT = ("run 'make slepc' in the eigenfarm checkout (Debian's libopenmpi-dev libmumps-dev "
                 "libscalapack-openmpi-dev, then pip install 'eigenfarm[slepc]'; see docs/parallel-solves.md)")
-#: MUMPS ICNTL(14) workspace margins (per cent over the analysis estimate) tried in turn
-WORKSPACE_MARGINS = (20, 60, 150)
+#: MUMPS ICNTL(14) workspace margins (per cent over the analysis estimate) tried in turn, in one process
+#: and on several ranks.  Measured (benchmarks/results/mpi_scale.md): on 2 ranks the default 20 % fell
+#: short at 108,000 atoms after 300 s of factorisation and 50 % worked; at 32,000 atoms 50 % costs 13 %
+#: more peak memory per rank than 20 %.
+WORKSPACE_MARGINS = {False: (20, 60, 150), True: (50, 100, 200)}
 #: MUMPS INFOG(1) codes meaning "a workspace was too small" (MUMPS user guide, INFO(1) −8, −9, −11, −14
 #: — from memory)
 WORKSPACE_SHORT = (-8, -9, -11, -14)
@@ -173,11 +176,12 @@ class SlepcBackend(Backend):
 
     def _factored(self, A, sigma: float):
         """A KSP holding the MUMPS factor of the PETSc matrix A = D − σI.  MUMPS's workspace estimate can
-        fall short with several ranks (INFOG(1) = −9, measured at 108,000 atoms on 2 ranks with the
-        default ICNTL(14) = 20 %): the factorisation is then repeated with a larger margin."""
+        fall short, above all on several ranks (INFOG(1) = −9, measured at 108,000 atoms on 2 ranks with
+        the default ICNTL(14) = 20 %): the factorisation is then repeated with a larger margin
+        (:data:`WORKSPACE_MARGINS`)."""
         PETSc, _ = require()
         A.setOption(PETSc.Mat.Option.SYMMETRIC, True)
-        for margin in WORKSPACE_MARGINS:
+        for margin in WORKSPACE_MARGINS[A.getComm().getSize() > 1]:
             ksp = PETSc.KSP().create(A.getComm())
             ksp.setOperators(A)
             configure_mumps(ksp, self.null_pivot)
