@@ -156,6 +156,10 @@ class SlepcBackend(Backend):
 
         start = time.perf_counter()
         if isinstance(D, ShardedMatrix):
+            # petsc4py leaves objects of a parallel communicator that Python no longer references to this
+            # collective call (a destroy in the garbage collector could deadlock): without it every
+            # earlier factor stayed in memory (measured: 2 × 1.3 GiB per rank at 32,000 atoms)
+            require()[0].garbage_cleanup(D.layout.comm)
             sigma = check_shift(sigma)
             A, layout = D.shifted(sigma), D.layout
             operator, norm = D.operator(A), A.norm(require()[0].NormType.NORM_1)
