@@ -116,7 +116,7 @@ def interior_shift(seed_cells: int = 5, fraction: float = 0.1) -> float:
 
 
 # ------------------------------------------------------------------------------ the factorisation job
-def factor_job(store: str, sigma_kind: str, sigma_value: float | None, out: str) -> None:
+def factor_job(store: str, sigma_kind: str, sigma_value: float | None, out: str, ordering: str = "auto") -> None:
     """Run under mpiexec (or alone): read D, factor D − σI with MUMPS through the slepc backend, record."""
     begun = time.perf_counter()
     from eigenfarm.solve.backends.slepc import SlepcBackend, mumps_statistics, require
@@ -146,7 +146,7 @@ def factor_job(store: str, sigma_kind: str, sigma_value: float | None, out: str)
     t = mark("assemble", t)
     norm = D.mat.norm(PETSc.NormType.NORM_1)
     sigma = -1e-4 * norm if sigma_kind == "below" else float(sigma_value)
-    backend = SlepcBackend()
+    backend = SlepcBackend(ordering=ordering)
     A = D.shifted(sigma)
     t = mark("shift", t)
     ksp = backend._factored(A, sigma)  # MUMPS analysis + numerical factorisation, collectively
@@ -218,16 +218,37 @@ def run_factor(args) -> None:
             for ranks in args.ranks:
                 out = args.scratch / f"factor-{cells}-{kind}-{ranks}.json"
                 out.unlink(missing_ok=True)
-                job = [PYTHON, __file__, "factor-job", str(store), "--sigma-kind", kind, "--json", str(out)]
+                job = [PYTHON, __file__, "factor-job", str(store), "--sigma-kind", kind, "--json", str(out),
+                       "--ordering", args.ordering]
                 if value is not None:
                     job += ["--sigma", repr(value)]
                 run = watched(MPIEXEC + ["-n", str(ranks)] + job if ranks > 1 or args.mpiexec_one else job,
                               args.timeout)
                 record = {"kind": "factor", "cells": cells, "n_atoms": 4 * cells**3, "ranks": ranks,
-                          "sigma_kind": kind, **run}
+                          "sigma_kind": kind, "ordering_asked": args.ordering, **run}
                 if out.exists():
                     record["job"] = json.loads(out.read_text())
                 log(args.scratch, record)
+
+
+GEMM = ("import time, numpy as np; a = np.random.rand(3000, 3000); b = a.T.copy(); a @ b; t = time.perf_counter()\n"
+        "for _ in range(5): a @ b\nprint(5 * 2 * 3000**3 / (time.perf_counter() - t) / 1e9)")
+
+
+def run_cores(args) -> None:
+    """Single-threaded 3000 × 3000 matrix products (numpy's BLAS) in one process, then in two processes at
+    once: GFlop/s each — how far dense kernels on both cores scale on this machine."""
+    import subprocess
+
+    def start():
+        return subprocess.Popen([PYTHON, "-c", GEMM], stdout=subprocess.PIPE, text=True, env={**os.environ, **ONE_THREAD})
+
+    load_before = list(os.getloadavg())
+    alone = float(start().communicate()[0])
+    pair = [start(), start()]
+    together = [float(proc.communicate()[0]) for proc in pair]
+    log(args.scratch, {"kind": "cores", "alone_gflops": alone, "together_gflops": together,
+                       "loadavg_before": load_before, "loadavg_after": list(os.getloadavg())})
 
 
 def run_lowest(args) -> None:
@@ -269,19 +290,28 @@ def catalogue_summary(path: Path) -> dict:
 
 
 # ------------------------------------------------------------------------------------------- report
+#: MUMPS INFOG(7), the ordering used (MUMPS user guide, ICNTL(7) — from memory)
+MUMPS_ORDERINGS = {0: "AMD", 1: "given", 2: "AMF", 3: "SCOTCH", 4: "PORD", 5: "METIS", 6: "QAMD"}
+
+
 def report(args) -> None:
     records = [json.loads(line) for line in (args.scratch / "runs.jsonl").read_text().splitlines() if line.strip()]
     if args.drop_before:
         records = [r for r in records if r["when"] >= args.drop_before]
-    factor_rows, lowest_rows, ratios, by_case = [], [], [], {}
+    factor_rows, lowest_rows, ratios, by_case, cores = [], [], [], {}, []
     for r in records:
         load = f"{r['loadavg_before'][0]:.1f} → {r['loadavg_after'][0]:.1f}"
-        if r["kind"] == "factor":
+        if r["kind"] == "cores":
+            pair = r["together_gflops"]
+            cores.append(f"| {r['when'][:16]} | {r['alone_gflops']:.1f} | {pair[0]:.1f} + {pair[1]:.1f} | "
+                         f"{sum(pair) / r['alone_gflops']:.2f} |")
+        elif r["kind"] == "factor":
             job = r.get("job")
             if not job:
-                factor_rows.append(f"| {r['n_atoms']:,} | {r['sigma_kind']} | {r['ranks']} | no result: status "
-                                   f"{r['status']} after {r['seconds']:.0f} s | | | | | {r['peak_process_mib']:,.0f} | "
-                                   f"{r['peak_total_mib']:,.0f} | | | {load} |")
+                factor_rows.append(f"| {r['when'][:16]} | {r['n_atoms']:,} | {r['sigma_kind']} | {r['ranks']} | "
+                                   f"{r.get('ordering_asked', 'auto')} | | no result: status {r['status']} | | | | "
+                                   f"{r['seconds']:.0f} | | {r['peak_process_mib']:,.0f} | {r['peak_total_mib']:,.0f} | "
+                                   f"| | {load} |")
                 continue
             ranks = job["per_rank"]
             ev = [p["events_seconds"] for p in ranks]
@@ -296,43 +326,47 @@ def report(args) -> None:
             outcome = (f"{job['backward_error']:.1e}" if good else
                        f"**failed** (backward error {job['backward_error']}, INFOG(1) = {infog1})")
             factor_rows.append(
-                f"| {r['n_atoms']:,} | {r['sigma_kind']} (σ = {job['sigma']:.3g}) | {r['ranks']} | "
+                f"| {r['when'][:16]} | {r['n_atoms']:,} | {r['sigma_kind']} (σ = {job['sigma']:.3g}) | {r['ranks']} | "
+                f"{r.get('ordering_asked', 'auto')} → {MUMPS_ORDERINGS.get(job['ordering'], job['ordering'])} | "
                 f"{job['icntl']['14']} | {outcome} | {wall:.0f} | "
                 f"{sym:.1f} / {num:.0f} | {' / '.join(f'{c:.0f}' for c in cpu)} | {whole} | "
                 f"{' / '.join(f'{m:,.0f}' for m in peaks)} | {r['peak_process_mib']:,.0f} | {r['peak_total_mib']:,.0f} | "
                 f"{job['factor_nnz']:.3g} | {job['flops_rinfog3']:.3g} | {load} |")
             if good:
-                by_case.setdefault((r["n_atoms"], r["sigma_kind"]), {})[r["ranks"]] = (wall, max(cpu), max(peaks),
-                                                                                        sum(peaks))
+                case = (r["n_atoms"], r["sigma_kind"], MUMPS_ORDERINGS.get(job["ordering"], job["ordering"]))
+                by_case.setdefault(case, {})[r["ranks"]] = (wall, max(cpu), max(peaks), sum(peaks))
         else:
             verdict = "> {:.0f} (stopped)".format(args.timeout) if r["timed_out"] else (
                 f"{r['seconds']:.0f}" if r["status"] == 0 else f"failed (status {r['status']}) at {r['seconds']:.0f}")
             complete = r.get("catalogue", {}).get("completeness", {}).get("complete", "")
-            lowest_rows.append(f"| {r['n_atoms']:,} | {r['variant']} | {verdict} | {complete} | "
+            lowest_rows.append(f"| {r['when'][:16]} | {r['n_atoms']:,} | {r['variant']} | {verdict} | {complete} | "
                                f"{r['peak_process_mib']:,.0f} | {r['peak_total_mib']:,.0f} | {load} |")
-    for (atoms, kind), runs in sorted(by_case.items()):
+    for (atoms, kind, ordering), runs in sorted(by_case.items()):
         if 1 in runs and 2 in runs:
             one, two = runs[1], runs[2]
-            ratios.append(f"| {atoms:,} | {kind} | {one[0] / two[0]:.2f} | {one[1] / two[1]:.2f} | "
+            ratios.append(f"| {atoms:,} | {kind} | {ordering} | {one[0] / two[0]:.2f} | {one[1] / two[1]:.2f} | "
                           f"{two[2] / one[2]:.2f} | {two[3] / one[3]:.2f} |")
     table = ["# MPI scale runs (issue 5, part 5)", "",
-             f"Machine: {os.cpu_count()} cores, 24 GiB, shared with other work (1-minute load average before → "
-             "after each run). 1 BLAS thread per process. Produced by benchmarks/mpi_scale.py; samples are "
+             f"Machine: {os.cpu_count()} cores, 24 GiB (1-minute load average before → after each run; the "
+             "notes say which runs shared the machine). 1 BLAS thread per process. Produced by benchmarks/mpi_scale.py; samples are "
              "factorisation_choices.py's network_sample (4·cells³ atoms), stores of 4,096-atom shards.", "",
              "## MUMPS LDLᵀ of D − σI through the slepc backend, 1 vs 2 MPI ranks", "",
              "factor s: KSP.setUp (MUMPS analysis + numerical factorisation) between barriers; CPU s: each rank's "
              "own CPU time in it; whole s: the watched process tree, start to exit; peak per rank: VmHWM of each "
              "rank; largest/sum: the watcher's polled RSS.", "",
-             "| atoms | σ | ranks | ICNTL(14) | backward error of one solve | factor s | analysis / numeric s (PETSc events, slowest rank) | CPU s per rank | "
+             "| when | atoms | σ | ranks | ordering asked → used (INFOG(7)) | ICNTL(14) | backward error of one solve | factor s | analysis / numeric s (PETSc events, slowest rank) | CPU s per rank | "
              "whole s | peak RSS per rank MiB | largest MiB | sum MiB | MUMPS factor entries | MUMPS flops | load |",
-             "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|", *factor_rows, "",
-             "| atoms | σ | speed-up 1→2 ranks (factor wall) | speed-up (CPU of the slowest rank) | "
-             "peak memory per rank, 2 ranks / 1 | summed memory, 2 ranks / 1 |", "|---|---|---|---|---|---|",
-             *ratios, "",
+             "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|", *factor_rows, "",
+             "| atoms | σ | ordering | speed-up 1→2 ranks (factor wall) | speed-up (CPU of the slowest rank) | "
+             "peak memory per rank, 2 ranks / 1 | summed memory, 2 ranks / 1 |", "|---|---|---|---|---|---|---|",
+             *ratios, "", "(Ratios from the latest successful run of each rank count.)", "",
+             "## Do both cores scale? (`cores`: single-threaded 3000 × 3000 numpy matrix products)", "",
+             "| when | GFlop/s alone | GFlop/s, two processes at once | together / alone |", "|---|---|---|---|",
+             *cores, "",
              f"## Lowest {args.lowest} non-trivial modes (`eigenfarm solve --lowest {args.lowest}`), stopped at "
              f"{args.timeout:.0f} s", "",
-             "| atoms | run | wall s | complete | largest process MiB | sum MiB | load |",
-             "|---|---|---|---|---|---|---|", *lowest_rows, ""]
+             "| when | atoms | run | wall s | complete | largest process MiB | sum MiB | load |",
+             "|---|---|---|---|---|---|---|---|", *lowest_rows, ""]
     if args.notes:
         table += ["## Notes", "", Path(args.notes).read_text().strip(), ""]
     write_results("mpi_scale", {"machine": {"cores": os.cpu_count(), "platform": platform.platform()},
@@ -353,10 +387,14 @@ def main() -> None:
     job.add_argument("--sigma-kind", choices=["below", "interior"], default="below")
     job.add_argument("--sigma", type=float)
     job.add_argument("--json", required=True)
+    job.add_argument("--ordering", default="auto", help="MUMPS ICNTL(7) by name (eigenfarm slepc backend ORDERINGS)")
     factor = sub.add_parser("factor")
     factor.add_argument("--cells", type=int, nargs="+", default=[30])
     factor.add_argument("--ranks", type=int, nargs="+", default=[1, 2])
     factor.add_argument("--interior", action="store_true")
+    factor.add_argument("--ordering", default="auto", help="MUMPS ordering asked for (auto, amd, amf, scotch, pord, "
+                        "metis, qamd); INFOG(7) in the record says which one MUMPS used")
+    sub.add_parser("cores", help="dense matrix products on 1 and on 2 cores at once: does the machine scale?")
     factor.add_argument("--mpiexec-one", action="store_true", help="run the 1-rank job under mpiexec -n 1 too")
     lowest = sub.add_parser("lowest")
     lowest.add_argument("--cells", type=int, nargs="+", default=[20, 30, 40])
@@ -371,7 +409,9 @@ def main() -> None:
     if args.command == "store":
         print(json.dumps(write_network_store(args.cells, args.out, args.shard_atoms), default=str))
     elif args.command == "factor-job":
-        factor_job(args.store, args.sigma_kind, args.sigma, args.json)
+        factor_job(args.store, args.sigma_kind, args.sigma, args.json, args.ordering)
+    elif args.command == "cores":
+        run_cores(args)
     elif args.command == "factor":
         run_factor(args)
     elif args.command == "lowest":
