@@ -9,8 +9,11 @@ failure, before deleting a half-written store).
 
 from __future__ import annotations
 
+import uuid
 from abc import ABC, abstractmethod
 from typing import Callable
+
+from eigenfarm.errors import InputError
 
 #: progress callback: (stage name, tasks done, tasks in the stage)
 Progress = Callable[[str, int, int], None]
@@ -104,8 +107,30 @@ class LocalRunner(Runner):
                 handle.value = None
 
 
+class Refused:
+    """An :class:`InputError` a task raised, returned as its result so that dask does not retry it (a
+    retry cannot mend bad input; ``retries`` are for transient failures).  :meth:`DaskRunner.gather`
+    raises it; a task given it as an argument returns it unchanged."""
+
+    def __init__(self, error: InputError):
+        self.error = error
+
+
+def _refusing(fn, *args):
+    """``fn(*args)``, an InputError (its own, or one an argument's task refused) returned as :class:`Refused`."""
+    for arg in args:
+        for item in arg if isinstance(arg, list) else [arg]:
+            if isinstance(item, Refused):
+                return item
+    try:
+        return fn(*args)
+    except InputError as exc:
+        return Refused(exc)
+
+
 class DaskRunner(Runner):
-    """Run tasks on a ``distributed.Client``; results stay on the workers until gathered."""
+    """Run tasks on a ``distributed.Client``; results stay on the workers until gathered.  A task that
+    raises is retried ``retries`` times, except for an :class:`InputError` (see :class:`Refused`)."""
 
     concurrent = True
 
@@ -116,9 +141,7 @@ class DaskRunner(Runner):
         self._workers = None
 
     def submit(self, fn, *args):
-        future = self.client.submit(fn, *args, pure=False, retries=self.retries)
-        self.submitted.append(future)
-        return future
+        return self.submit_near(None, fn, *args)
 
     def _addresses(self) -> list:
         if not self._workers:  # fixed at first use: a slot keeps meaning the same worker
@@ -132,11 +155,10 @@ class DaskRunner(Runner):
     def submit_near(self, slot, fn, *args):
         """Prefer the worker of ``slot``; a loose restriction, so if that worker has gone another runs the
         task (work stealing may also move one now and then)."""
-        workers = self._addresses()
-        if not workers:
-            return self.submit(fn, *args)
-        future = self.client.submit(fn, *args, pure=False, retries=self.retries,
-                                    workers=[workers[slot % len(workers)]], allow_other_workers=True)
+        workers = self._addresses() if slot is not None else []
+        place = {"workers": [workers[slot % len(workers)]], "allow_other_workers": True} if workers else {}
+        key = f"{getattr(fn, '__name__', 'task')}-{uuid.uuid4().hex}"  # the dashboard names the task, not the wrapper
+        future = self.client.submit(_refusing, fn, *args, key=key, retries=self.retries, **place)
         self.submitted.append(future)
         return future
 
@@ -157,7 +179,11 @@ class DaskRunner(Runner):
                 future.result()
             if progress:
                 progress(stage, done, len(handles))
-        return self.client.gather(handles)
+        results = self.client.gather(handles)
+        for result in results:
+            if isinstance(result, Refused):
+                raise result.error
+        return results
 
     def release(self, handles):
         drop = {id(h) for h in handles}
