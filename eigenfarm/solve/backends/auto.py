@@ -62,17 +62,14 @@ class AutoBackend(Backend):
 
     def _pivoting(self, D: sp.spmatrix, sigma: float, tried: str | None = None) -> Factor:
         """A symmetric-indefinite LDLᵀ with inertia: MUMPS if installed and working, else SuperLU."""
-        notes = [tried] if tried else []
+        notes, factor = [tried] if tried else [], None
         if self.mumps is not None:
             try:
                 factor = self.mumps.factor(D, sigma)
             except InputError as exc:  # PETSc does not load, or MUMPS itself failed: SuperLU can still count
                 notes.append(f"slepc: {exc}")
-            else:
-                if notes:
-                    factor.stats["tried"] = "; ".join(notes)
-                return factor
-        factor = self.superlu.factor(D, sigma)
+        if factor is None:
+            factor = self.superlu.factor(D, sigma)
         if notes:
             factor.stats["tried"] = "; ".join(notes)
         return factor
