@@ -120,7 +120,7 @@ def _one_pass(D, backend: SlepcBackend, request, scale: float):
     from eigenfarm.solve.slepc_slices import KrylovSchurEngine
     from eigenfarm.solve.slicer import solve_lowest
 
-    if request.lowest is None or request.lowest > solvejob.ONE_PASS_MAX:
+    if not solvejob.tries_one_pass(request):
         return None
     found = solve_lowest(D, backend, request.lowest, scale, request.zero_tol, request.lanczos, KrylovSchurEngine())
     if found is None:

@@ -20,7 +20,7 @@ from eigenfarm.catalogue.writer import check_destination
 from eigenfarm.errors import InputError
 from eigenfarm.farm import tasks
 from eigenfarm.farm.runner import Runner
-from eigenfarm.plan.slicing import Plan, plan_lowest, plan_one_pass, plan_window
+from eigenfarm.plan.slicing import Plan, plan_lowest, plan_window
 from eigenfarm.solve.dynamical import trivial_zero_modes
 from eigenfarm.solve.slicer import LanczosSettings
 from eigenfarm.store import open_store
@@ -78,9 +78,15 @@ def _counter(runner: Runner, store: str, backend: str):
 ONE_PASS_MAX = 200
 
 
+def tries_one_pass(request: SolveRequest) -> bool:
+    """Whether ``request`` is first tried in one pass (``--lowest K`` with K ≤ :data:`ONE_PASS_MAX`), in
+    the dask job and on MPI ranks alike."""
+    return request.lowest is not None and request.lowest <= ONE_PASS_MAX
+
+
 def _plan(runner: Runner, store: str, request: SolveRequest, units, n: int, work: WorkFolder) -> Plan:
     scale = runner.gather([runner.submit(tasks.scale_task, store)])[0]
-    if request.lowest is not None and request.lowest <= ONE_PASS_MAX:
+    if tries_one_pass(request):
         plan = _one_pass(runner, store, request, scale, work)
         if plan is not None:
             return plan
@@ -100,9 +106,7 @@ def _one_pass(runner: Runner, store: str, request: SolveRequest, scale: float, w
     """The lowest K in one task (tasks.lowest_task); its modes are saved as slice 0 of the plan returned."""
     found = runner.gather([runner.submit(tasks.lowest_task, store, request.backend, request.lowest, scale,
                                          request.zero_tol, request.lanczos, work.save_part)])[0]
-    if found is None:
-        return None
-    return plan_one_pass(scale, request.zero_tol, request.lowest, found["check"], found["count"], found["n_zero"])
+    return None if found is None else found["plan"]
 
 
 def open_job(store, out, request: SolveRequest, overwrite: bool) -> tuple[WorkFolder, dict, object]:

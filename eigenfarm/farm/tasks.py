@@ -76,12 +76,11 @@ def slice_task(path: str, backend: str, piece: Slice, scale: float, settings: La
 def lowest_task(path: str, backend: str, k: int, scale: float, zero_tol: float, settings: LanczosSettings,
                 save) -> dict | None:
     """The k lowest modes in one pass, proved complete by one count (:func:`solve_lowest`), saved as
-    slice 0 of (τ, σ_c]; returns {"check", "count", "n_zero", record} or None when the proof fails."""
+    slice 0 of (τ, σ_c]; returns {"plan": its one-slice plan, "record"} or None when the proof fails."""
     started = time.perf_counter()
     D = opened(path)[0]
     found = solve_lowest(D, get_backend(backend), k, scale, zero_tol, settings)
     if found is None:
         return None
-    piece = plan_one_pass(scale, zero_tol, k, found.check, found.count, found.n_zero).slices[0]
-    return {"check": found.check, "count": found.count, "n_zero": found.n_zero,
-            "record": save_slice(save, opened(path)[1], piece, found.modes, started)}
+    plan = plan_one_pass(scale, zero_tol, k, found.check, found.count, found.n_zero)
+    return {"plan": plan, "record": save_slice(save, opened(path)[1], plan.slices[0], found.modes, started)}
