@@ -6,6 +6,9 @@ Reference throughout (unless a test says otherwise): dense LAPACK through numpy 
 
 from __future__ import annotations
 
+import subprocess
+import sys
+
 import numpy as np
 import pytest
 import scipy.sparse as sp
@@ -273,6 +276,19 @@ def test_auto_counts_with_mumps_when_petsc_is_installed(glass):
         b = np.random.default_rng(1).standard_normal(D.shape[0])
         x = factor.solve(b)
         assert np.linalg.norm(D @ x - sigma * x - b) <= 1e-9 * np.linalg.norm(b)
+
+
+@needs_slepc
+def test_starting_petsc_in_a_process_leaves_its_children_no_mpi_job_to_join():
+    # Open MPI's singleton start sets PMIX_RANK and ~25 other variables in the C environment, which
+    # child processes inherit; eigenfarm (mpijob.launched_by_mpi) would then take a child for an MPI rank
+    slepc.require()
+    probe = "from eigenfarm.farm.mpijob import launched_by_mpi; import os; print(launched_by_mpi(), " \
+            "sorted(k for k in os.environ if k.startswith(('PMIX_', 'OMPI_'))))"
+    child = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, check=True)
+    assert child.stdout.strip() == "False []"
+    D = sp.diags(np.arange(1.0, 2001.0)).tocsr()  # MPI still works here after the clean-up
+    assert slepc.SlepcBackend().factor(D, 100.5).inertia().below == 100
 
 
 def test_auto_falls_back_to_superlu_when_mumps_fails(glass, monkeypatch):

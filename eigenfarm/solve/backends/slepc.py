@@ -28,7 +28,10 @@ Example::
 
 from __future__ import annotations
 
+import ctypes
+import functools
 import importlib.util
+import os
 import time
 
 import numpy as np
@@ -65,16 +68,41 @@ def require():
         raise InputError(f"backend 'slepc' needs petsc4py, slepc4py and mpi4py, which are not installed: "
                          f"{INSTALL_HINT}")
     try:
-        import petsc4py
-        import slepc4py
-
-        petsc4py.init()
-        slepc4py.init()
-        from petsc4py import PETSc
-        from slepc4py import SLEPc
+        return _loaded()
     except ImportError as exc:  # installed but its libraries (MPI, MUMPS) are missing
         raise InputError(f"backend 'slepc': PETSc/SLEPc do not load ({exc}): {INSTALL_HINT}") from None
+
+
+@functools.cache
+def _loaded():
+    """Import and initialise PETSc and SLEPc once per process (this starts MPI)."""
+    import petsc4py
+    import slepc4py
+
+    petsc4py.init()
+    slepc4py.init()
+    from petsc4py import PETSc
+    from slepc4py import SLEPc
+
+    _forget_mpi_start()
     return PETSc, SLEPc
+
+
+def _forget_mpi_start() -> None:
+    """Unset the variables MPI's start put into this process's environment (Open MPI: PMIX_RANK, OMPI_MCA_…),
+    i.e. those Python's ``os.environ`` does not hold.  Child processes inherit the C environment: without
+    this, an ``eigenfarm`` started from a process that had counted with MUMPS (the ``auto`` backend) took
+    itself for an MPI rank, and a dask worker would try to join this process's MPI job.  Variables an MPI
+    launcher set for this process are in ``os.environ`` and stay."""
+    libc = ctypes.CDLL(None)
+    entries = ctypes.POINTER(ctypes.c_char_p).in_dll(libc, "environ")
+    names, i = [], 0
+    while entries[i]:
+        names.append(os.fsdecode(entries[i].split(b"=", 1)[0]))
+        i += 1
+    for name in names:
+        if name not in os.environ:
+            os.unsetenv(name)
 
 
 def configure_mumps(ksp, null_pivot: float) -> None:
@@ -156,13 +184,14 @@ class SlepcBackend(Backend):
 
         start = time.perf_counter()
         if isinstance(D, ShardedMatrix):
+            PETSc, _ = require()
             # petsc4py leaves objects of a parallel communicator that Python no longer references to this
             # collective call (a destroy in the garbage collector could deadlock): without it every
             # earlier factor stayed in memory (measured: 2 × 1.3 GiB per rank at 32,000 atoms)
-            require()[0].garbage_cleanup(D.layout.comm)
+            PETSc.garbage_cleanup(D.layout.comm)
             sigma = check_shift(sigma)
             A, layout = D.shifted(sigma), D.layout
-            operator, norm = D.operator(A), A.norm(require()[0].NormType.NORM_1)
+            operator, norm = D.operator(A), A.norm(PETSc.NormType.NORM_1)
         else:
             operator, sigma, norm = shifted(D, sigma)
             layout = VectorLayout.serial(operator.shape[0])
